@@ -1,0 +1,47 @@
+"""thermoseed pre-training: fit Gibbs models (quantum Boltzmann machines) to quantum data.
+
+Layering (each module imports only from those above it in this list): errors, _base, files,
+linalg, paulis, data, engines, fit, models, diagnostics, io. Nothing here imports bridge/.
+"""
+
+from .data import (
+    TrainingData,
+    as_training_data,
+    from_density_matrices,
+    from_qfunc,
+    from_states,
+    load_training_data,
+)
+from .diagnostics import fidelity, moment_residuals, relative_entropy, trace_distance
+from .engines import DenseEngine, GibbsEngine, GibbsEvaluation, make_engine
+from .errors import ConvergenceWarning, DivergenceWarning, NotFittedError, ThermoseedError
+from .fit import FitResult, adam, minimize
+from .io import load_model, read_record, save_model, write_record
+from .linalg import von_neumann_entropy
+from .models import VisibleGibbsModel
+from .paulis import (
+    PauliExpansion,
+    PauliString,
+    TermSet,
+    dense_hamiltonian,
+    expectations,
+    from_pennylane,
+    graph_edges,
+    graph_terms,
+    pauli_traces,
+    sparse_hamiltonian,
+    to_pennylane,
+)
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "ConvergenceWarning", "DenseEngine", "DivergenceWarning", "FitResult", "GibbsEngine",
+    "GibbsEvaluation", "NotFittedError", "PauliExpansion", "PauliString", "TermSet",
+    "ThermoseedError", "TrainingData", "VisibleGibbsModel", "adam", "as_training_data",
+    "dense_hamiltonian", "expectations", "fidelity", "from_density_matrices", "from_pennylane",
+    "from_qfunc", "from_states", "graph_edges", "graph_terms", "load_model", "load_training_data",
+    "make_engine", "minimize", "moment_residuals", "pauli_traces", "read_record",
+    "relative_entropy", "save_model", "sparse_hamiltonian", "to_pennylane", "trace_distance",
+    "von_neumann_entropy", "write_record",
+]

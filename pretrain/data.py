@@ -1,0 +1,267 @@
+"""Training states: validation, the training density operator, target moments.
+
+Accepted inputs: a batch of state vectors (optional weights), one density matrix, a stack of
+density matrices (optional weights), a PennyLane quantum function, or a ``.npy``/``.npz`` file.
+The training density operator is the weighted mixture ``rho = sum_i w_i rho_i``.
+
+``.npz`` schema (keys): ``states`` (B, 2^n) complex, or ``density`` (2^n, 2^n) or (B, 2^n, 2^n);
+optional ``weights`` (B,) positive; optional ``labels`` (B,) integers (used by bridge/).
+"""
+
+from __future__ import annotations
+
+import zipfile
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import ThermoseedError
+from .linalg import von_neumann_entropy
+from .paulis import TermSet, expectations
+
+#: Largest |A - A^dag| entry accepted for a density matrix.
+HERMITIAN_ATOL = 1e-8
+#: Most negative eigenvalue accepted for a density matrix.
+PSD_ATOL = 1e-8
+#: Largest |Tr rho - 1| (and |<psi|psi> - 1|) accepted without renormalisation.
+TRACE_ATOL = 1e-8
+
+DATA_KINDS = ("states", "density")
+
+
+@dataclass(frozen=True)
+class TrainingData:
+    """The training density operator and where it came from.
+
+    Attributes:
+        rho: (2^n, 2^n) complex density matrix, the weighted mixture of the inputs.
+        n_qubits: number of qubits.
+        n_members: number of states mixed into ``rho``.
+        labels: optional integer label per member (classification data for bridge/).
+        states: optional (B, 2^n) pure states when the input was a batch of vectors.
+        weights: mixture weights (sum 1).
+    """
+
+    rho: np.ndarray
+    n_qubits: int
+    n_members: int
+    weights: np.ndarray
+    labels: np.ndarray | None = None
+    states: np.ndarray | None = field(default=None, repr=False)
+
+    def moments(self, terms: TermSet) -> np.ndarray:
+        """Target moments ``m_j = Tr(rho P_j)``."""
+        check_qubits(self.n_qubits, terms)
+        return expectations(self.rho, terms)
+
+    def entropy(self) -> float:
+        """Data entropy ``S(rho)`` in nats."""
+        return von_neumann_entropy(self.rho)
+
+
+def check_qubits(n_qubits: int, terms: TermSet) -> None:
+    if n_qubits != terms.n_qubits:
+        raise ThermoseedError(
+            f"training data has {n_qubits} qubits but the term set acts on {terms.n_qubits}; "
+            "build the term set for the data's qubit count"
+        )
+
+
+def _qubits_of(dim: int, what: str) -> int:
+    n = int(round(np.log2(dim))) if dim > 0 else -1
+    if dim < 2 or 2**n != dim:
+        raise ThermoseedError(f"{what} has dimension {dim}, which is not a power of two (2^n)")
+    return n
+
+
+def _finite(arr: np.ndarray, what: str) -> np.ndarray:
+    a = np.asarray(arr)
+    if not np.issubdtype(a.dtype, np.number):
+        raise ThermoseedError(f"{what} must be numeric, got dtype {a.dtype}")
+    a = a.astype(complex)
+    if not np.all(np.isfinite(a)):
+        raise ThermoseedError(f"{what} contains NaN or infinite entries; clean the data first")
+    return a
+
+
+def _check_weights(weights, count: int) -> np.ndarray:
+    if weights is None:
+        return np.full(count, 1.0 / count)
+    w = np.asarray(weights, dtype=float)
+    if w.shape != (count,):
+        raise ThermoseedError(f"weights have shape {w.shape}; expected ({count},), one per state")
+    if not np.all(np.isfinite(w)) or np.any(w <= 0):
+        bad = np.flatnonzero(~(np.isfinite(w) & (w > 0)))[:5].tolist()
+        raise ThermoseedError(
+            f"weights must be positive and finite; entries {bad} are not (drop those states)"
+        )
+    return w / w.sum()
+
+
+def _check_labels(labels, count: int) -> np.ndarray | None:
+    if labels is None:
+        return None
+    lab = np.asarray(labels)
+    if lab.shape != (count,) or not np.issubdtype(lab.dtype, np.integer):
+        raise ThermoseedError(f"labels must be {count} integers, got shape {lab.shape} {lab.dtype}")
+    return lab.astype(np.int64)
+
+
+def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density matrix"):
+    """Validate a density matrix: square, 2^n, finite, Hermitian, PSD, unit trace."""
+    a = _finite(rho, what)
+    if a.ndim != 2 or a.shape[0] != a.shape[1]:
+        raise ThermoseedError(f"{what} must be a square matrix, got shape {a.shape}")
+    _qubits_of(a.shape[0], what)
+    asym = np.abs(a - a.conj().T).max()
+    if asym > HERMITIAN_ATOL:
+        raise ThermoseedError(
+            f"{what} is not Hermitian: max |rho - rho^dag| = {asym:.3g} > {HERMITIAN_ATOL:g}; "
+            "symmetrise it as (rho + rho^dag)/2 if this is round-off"
+        )
+    a = 0.5 * (a + a.conj().T)
+    low = np.linalg.eigvalsh(a).min()
+    if low < -PSD_ATOL:
+        raise ThermoseedError(
+            f"{what} has a negative eigenvalue {low:.3g} (< -{PSD_ATOL:g}); it is not a "
+            "physical state (project onto the PSD cone, e.g. clip eigenvalues at 0)"
+        )
+    tr = np.trace(a).real
+    if abs(tr - 1.0) > TRACE_ATOL:
+        if not renormalize or tr <= 0:
+            raise ThermoseedError(
+                f"{what} has trace {tr:.12g}, not 1; pass renormalize=True to divide by the trace"
+            )
+        a = a / tr
+    return a
+
+
+def from_states(states, weights=None, *, labels=None, renormalize: bool = False) -> TrainingData:
+    """Mixture of pure states: ``rho = sum_i w_i |psi_i><psi_i|``; ``states`` is (B, 2^n)."""
+    s = _finite(states, "state batch")
+    if s.ndim == 1:
+        s = s[None, :]
+    if s.ndim != 2:
+        raise ThermoseedError(f"state batch must be (B, 2^n), got shape {s.shape}")
+    n = _qubits_of(s.shape[1], "state vector")
+    norms = np.linalg.norm(s, axis=1)
+    off = np.flatnonzero(np.abs(norms**2 - 1.0) > TRACE_ATOL)
+    if off.size:
+        if not renormalize or np.any(norms[off] == 0):
+            raise ThermoseedError(
+                f"state vectors {off[:5].tolist()} are not normalised (|psi|^2 = "
+                f"{norms[off[0]] ** 2:.12g}); pass renormalize=True to normalise them"
+            )
+        s = s / norms[:, None]
+    w = _check_weights(weights, s.shape[0])
+    rho = (s.T * w) @ s.conj()
+    return TrainingData(rho, n, s.shape[0], w, _check_labels(labels, s.shape[0]), s)
+
+
+def from_density_matrices(
+    rhos, weights=None, *, labels=None, renormalize: bool = False
+) -> TrainingData:
+    """Weighted mixture of density matrices; ``rhos`` is (2^n, 2^n) or (B, 2^n, 2^n)."""
+    r = np.asarray(rhos)
+    if r.ndim == 2:
+        r = r[None]
+    if r.ndim != 3:
+        raise ThermoseedError(f"density matrices must be (B, 2^n, 2^n), got shape {r.shape}")
+    checked = np.stack(
+        [check_density_matrix(m, renormalize=renormalize, what=f"density matrix {i}")
+         for i, m in enumerate(r)]
+    )
+    w = _check_weights(weights, len(checked))
+    rho = np.tensordot(w, checked, axes=1)
+    n = _qubits_of(rho.shape[0], "density matrix")
+    return TrainingData(rho, n, len(checked), w, _check_labels(labels, len(checked)))
+
+
+def from_qfunc(qfunc: Callable[[], None], n_qubits: int) -> TrainingData:
+    """Run a PennyLane quantum function (no arguments, wires ``0..n-1``) on ``default.qubit``
+    and train on the state it prepares (or on the ``default.mixed`` density matrix when the
+    function contains noise channels)."""
+    import pennylane as qml
+
+    wires = list(range(int(n_qubits)))
+    dev = qml.device("default.mixed", wires=wires)
+
+    @qml.qnode(dev)
+    def circuit():
+        qfunc()
+        return qml.density_matrix(wires=wires)
+
+    try:
+        rho = np.asarray(circuit())
+    except Exception as err:  # noqa: BLE001 - a user's function may raise anything
+        raise ThermoseedError(f"running the quantum function failed: {err}") from err
+    return from_density_matrices(rho)
+
+
+def as_training_data(
+    source, *, kind: str | None = None, weights=None, labels=None, n_qubits: int | None = None,
+    renormalize: bool = False,
+) -> TrainingData:
+    """Dispatch any accepted input to a ``TrainingData``.
+
+    1-D arrays are one state vector, 3-D arrays a stack of density matrices; a 2-D array is
+    ambiguous when square (B states of dimension B, or one density matrix): pass
+    ``kind="states"`` or ``kind="density"``. A callable needs ``n_qubits``.
+    """
+    if isinstance(source, TrainingData):
+        return source
+    if isinstance(source, (str, Path)):
+        return load_training_data(source, kind=kind, renormalize=renormalize)
+    if callable(source):
+        if n_qubits is None:
+            raise ThermoseedError("a quantum-function data source needs n_qubits=")
+        return from_qfunc(source, n_qubits)
+    arr = np.asarray(source)
+    if kind is not None and kind not in DATA_KINDS:
+        raise ThermoseedError(f"unknown data kind {kind!r}; choose one of {DATA_KINDS}")
+    if kind is None:
+        if arr.ndim == 1 or (arr.ndim == 2 and arr.shape[0] != arr.shape[1]):
+            kind = "states"
+        elif arr.ndim == 3:
+            kind = "density"
+        else:
+            raise ThermoseedError(
+                f"a square {arr.shape} array may be {arr.shape[0]} state vectors or one density "
+                "matrix; pass kind='states' or kind='density'"
+            )
+    build = from_states if kind == "states" else from_density_matrices
+    return build(arr, weights, labels=labels, renormalize=renormalize)
+
+
+def load_training_data(path, *, kind: str | None = None, renormalize: bool = False):
+    """Load ``.npy`` or ``.npz`` training data (schema in the module docstring); no pickle."""
+    p = Path(path)
+    if not p.exists():
+        raise ThermoseedError(f"data file {str(p)!r} does not exist")
+    try:
+        loaded = np.load(p, allow_pickle=False)
+    except (ValueError, OSError, zipfile.BadZipFile, EOFError) as err:
+        raise ThermoseedError(f"cannot read data file {str(p)!r}: {err}") from err
+    if isinstance(loaded, np.ndarray):
+        return as_training_data(loaded, kind=kind, renormalize=renormalize)
+    with loaded:
+        keys = set(loaded.files)
+        try:
+            weights = loaded["weights"] if "weights" in keys else None
+            labels = loaded["labels"] if "labels" in keys else None
+            if "states" in keys:
+                return from_states(loaded["states"], weights, labels=labels,
+                                   renormalize=renormalize)
+            if "density" in keys:
+                return from_density_matrices(loaded["density"], weights, labels=labels,
+                                             renormalize=renormalize)
+        except (ValueError, OSError, zipfile.BadZipFile) as err:
+            if isinstance(err, ThermoseedError):
+                raise ThermoseedError(f"{p}: {err}") from err
+            raise ThermoseedError(f"cannot read data file {str(p)!r}: {err}") from err
+    raise ThermoseedError(
+        f"{str(p)!r} holds keys {sorted(keys)}; a data file needs 'states' or 'density' "
+        "(optional 'weights', 'labels')"
+    )

@@ -1,0 +1,223 @@
+"""Optimisers for smooth losses with exact gradients: L-BFGS (scipy) and Adam.
+
+Adam is a pure (init, update) pair over an immutable state record; a checkpoint is that
+record plus the iterate and history in an ``.npz``, and resuming is loading it. The driver
+``minimize`` sees only a ``loss_and_grad(x) -> (loss, grad)`` callable, never a model.
+"""
+
+from __future__ import annotations
+
+import sys
+import warnings
+from collections.abc import Callable
+from pathlib import Path
+from typing import NamedTuple
+
+import numpy as np
+import scipy.optimize
+from tqdm.auto import tqdm
+
+from .errors import ConvergenceWarning, ThermoseedError
+from .files import atomic_save_npz, load_npz
+
+SOLVERS = ("lbfgs", "adam")
+#: Relative loss-change floor handed to L-BFGS-B; the real stop is the gradient norm.
+LBFGS_FTOL = 1e-15
+
+LossAndGrad = Callable[[np.ndarray], tuple[float, np.ndarray]]
+#: ``callback(step, x, loss, grad)``; returning True stops the fit early.
+Callback = Callable[[int, np.ndarray, float, np.ndarray], "bool | None"]
+
+
+class AdamState(NamedTuple):
+    step: int
+    mean: np.ndarray
+    second: np.ndarray
+
+
+class Stepper(NamedTuple):
+    """A pure optimiser: ``init(x) -> state``, ``update(grad, state) -> (delta, state)``."""
+
+    init: Callable
+    update: Callable
+
+
+def adam(learning_rate: float = 0.05, b1: float = 0.9, b2: float = 0.999, eps: float = 1e-8):
+    """Adam: ``delta = -lr * mhat / (sqrt(vhat) + eps)`` with bias-corrected moments."""
+
+    def init(x: np.ndarray) -> AdamState:
+        return AdamState(0, np.zeros_like(x), np.zeros_like(x))
+
+    def update(grad: np.ndarray, state: AdamState) -> tuple[np.ndarray, AdamState]:
+        step = state.step + 1
+        mean = b1 * state.mean + (1 - b1) * grad
+        second = b2 * state.second + (1 - b2) * grad**2
+        mhat = mean / (1 - b1**step)
+        vhat = second / (1 - b2**step)
+        return -learning_rate * mhat / (np.sqrt(vhat) + eps), AdamState(step, mean, second)
+
+    return Stepper(init, update)
+
+
+class FitResult(NamedTuple):
+    x: np.ndarray
+    loss: float
+    grad_norm: float
+    n_iter: int
+    converged: bool
+    history: dict[str, list[float]]
+
+
+class _Recorder:
+    """Keeps history, drives the progress bar and callback, writes checkpoints."""
+
+    def __init__(self, callback, progress, max_iter, checkpoint, checkpoint_every, history, step):
+        self.callback = callback
+        self.history = history
+        self.step = step
+        self.checkpoint = checkpoint
+        self.checkpoint_every = checkpoint_every
+        self.stopped_by_callback = False
+        self.bar = tqdm(total=max_iter, initial=step, disable=not progress, file=sys.stderr,
+                        desc="fit", leave=False)
+
+    def record(self, x, loss, grad, extra: dict[str, np.ndarray] | None = None) -> bool:
+        self.step += 1
+        gnorm = float(np.linalg.norm(grad))
+        self.history["loss"].append(float(loss))
+        self.history["grad_norm"].append(gnorm)
+        self.bar.update(1)
+        self.bar.set_postfix(loss=f"{loss:.3e}", grad=f"{gnorm:.1e}", refresh=False)
+        if self.checkpoint is not None and self.step % self.checkpoint_every == 0:
+            save_checkpoint(self.checkpoint, x, self.step, self.history, extra or {})
+        stop = self.callback(self.step, x, float(loss), grad) if self.callback else False
+        self.stopped_by_callback = bool(stop)
+        return bool(stop)
+
+    def close(self):
+        self.bar.close()
+
+
+def save_checkpoint(path, x, step, history, extra: dict[str, np.ndarray]) -> None:
+    """Write iterate, step count, history and optimiser state atomically."""
+    arrays = {
+        "x": np.asarray(x, float),
+        "step": np.array(step),
+        "history_loss": np.asarray(history["loss"], float),
+        "history_grad_norm": np.asarray(history["grad_norm"], float),
+    }
+    arrays.update({f"opt_{k}": np.asarray(v) for k, v in extra.items()})
+    atomic_save_npz(path, arrays)
+
+
+def load_checkpoint(path, size: int) -> tuple[np.ndarray, int, dict, dict]:
+    """Read a checkpoint written by ``save_checkpoint``; checks the iterate size."""
+    arrays = load_npz(path, what="checkpoint")
+    try:
+        x = arrays["x"]
+        step = int(arrays["step"])
+        history = {"loss": arrays["history_loss"].tolist(),
+                   "grad_norm": arrays["history_grad_norm"].tolist()}
+    except KeyError as err:
+        raise ThermoseedError(f"checkpoint {str(path)!r} lacks array {err}; delete it") from err
+    if x.shape != (size,):
+        raise ThermoseedError(
+            f"checkpoint {str(path)!r} holds {x.size} parameters but the fit has {size}; "
+            "delete the checkpoint or point to the right one"
+        )
+    extra = {k[4:]: v for k, v in arrays.items() if k.startswith("opt_")}
+    return x, step, history, extra
+
+
+def minimize(
+    loss_and_grad: LossAndGrad,
+    x0: np.ndarray,
+    *,
+    solver: str = "lbfgs",
+    tol: float = 1e-6,
+    max_iter: int = 500,
+    learning_rate: float = 0.05,
+    callback: Callback | None = None,
+    progress: bool = False,
+    checkpoint: str | Path | None = None,
+    checkpoint_every: int = 25,
+) -> FitResult:
+    """Minimise until ``|grad| <= tol`` or ``max_iter`` iterations.
+
+    With ``checkpoint`` set, state is saved every ``checkpoint_every`` iterations and an
+    existing checkpoint is resumed from (L-BFGS restarts its curvature memory on resume).
+    """
+    if solver not in SOLVERS:
+        raise ThermoseedError(f"unknown solver {solver!r}; choose one of {SOLVERS}")
+    x = np.asarray(x0, dtype=float).copy()
+    history: dict[str, list[float]] = {"loss": [], "grad_norm": []}
+    step = 0
+    extra: dict[str, np.ndarray] = {}
+    if checkpoint is not None and Path(checkpoint).exists():
+        x, step, history, extra = load_checkpoint(checkpoint, x.size)
+    rec = _Recorder(callback, progress, max_iter, checkpoint, checkpoint_every, history, step)
+    try:
+        if solver == "adam":
+            x = _run_adam(loss_and_grad, x, rec, tol, max_iter, learning_rate, extra)
+        else:
+            x = _run_lbfgs(loss_and_grad, x, rec, tol, max_iter)
+    finally:
+        rec.close()
+    loss, grad = loss_and_grad(x)
+    gnorm = float(np.linalg.norm(grad))
+    converged = gnorm <= tol
+    if not converged and not rec.stopped_by_callback:
+        reason = "the iteration cap" if rec.step >= max_iter else "a stalled line search"
+        warnings.warn(
+            f"stopped at {reason} after {rec.step} iterations with |grad| = {gnorm:.3g} > "
+            f"tol = {tol:g}; raise max_iter or loosen tol (tol near 1e-8 hits round-off)",
+            ConvergenceWarning,
+            stacklevel=3,
+        )
+    if checkpoint is not None:
+        save_checkpoint(checkpoint, x, rec.step, rec.history, {})
+    return FitResult(x, float(loss), gnorm, rec.step, converged, rec.history)
+
+
+def _run_adam(loss_and_grad, x, rec, tol, max_iter, learning_rate, extra) -> np.ndarray:
+    opt = adam(learning_rate)
+    state = opt.init(x)
+    if "mean" in extra:
+        state = AdamState(int(extra["step"]), extra["mean"], extra["second"])
+    while rec.step < max_iter:
+        loss, grad = loss_and_grad(x)
+        if np.linalg.norm(grad) <= tol:
+            break
+        delta, state = opt.update(grad, state)
+        x = x + delta
+        if rec.record(x, loss, grad, state._asdict()):
+            break
+    return x
+
+
+def _run_lbfgs(loss_and_grad, x, rec, tol, max_iter) -> np.ndarray:
+    last: dict[str, object] = {}
+
+    def fun(z):
+        loss, grad = loss_and_grad(z)
+        last.update(x=z.copy(), loss=loss, grad=grad)
+        return loss, grad
+
+    def on_iteration(intermediate_result):
+        z = intermediate_result.x
+        if "x" in last and np.array_equal(last["x"], z):
+            loss, grad = last["loss"], last["grad"]
+        else:
+            loss, grad = fun(z)
+        stop = rec.record(z, loss, grad)
+        if stop or np.linalg.norm(grad) <= tol or rec.step >= max_iter:
+            raise StopIteration
+
+    remaining = max_iter - rec.step
+    if remaining <= 0:
+        return x
+    res = scipy.optimize.minimize(
+        fun, x, jac=True, method="L-BFGS-B", callback=on_iteration,
+        options={"maxiter": remaining, "gtol": 0.0, "ftol": LBFGS_FTOL, "maxcor": 20},
+    )
+    return np.asarray(res.x, dtype=float)

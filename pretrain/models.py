@@ -1,0 +1,213 @@
+"""Visible Gibbs model (quantum Boltzmann machine without hidden qubits).
+
+``sigma(theta) = exp(-H(theta)) / Z``, ``H = sum_j theta_j P_j``. Fitting minimises
+``L(theta) = S(rho||sigma) + (l2/2)|theta|^2 = -S(rho) + theta.m + log Z + (l2/2)|theta|^2``
+with exact gradient ``m - <P>_sigma + l2 theta``, ``m_j = Tr(rho P_j)``. L is convex, so
+L-BFGS reaches the maximum-entropy state whose moments equal the data's.
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from ._base import ParamsMixin, check_is_fitted
+from .data import TrainingData, as_training_data, check_density_matrix, check_qubits
+from .engines import make_engine
+from .errors import DivergenceWarning, ThermoseedError
+from .fit import SOLVERS, Callback, minimize
+from .linalg import von_neumann_entropy
+from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
+
+#: |theta| entries above this mean weights e^{-|theta|} below ~1e-11: the fit is chasing a
+#: rank-deficient target and the coefficients have no finite optimum (use l2 > 0).
+DIVERGENCE_COEF = 25.0
+#: Smallest data eigenvalue below which the data count as rank-deficient.
+RANK_FLOOR = 1e-10
+
+
+class VisibleGibbsModel(ParamsMixin):
+    """Gibbs model over a fixed Pauli term set, fitted by relative-entropy minimisation.
+
+    Parameters:
+        terms: the ``TermSet`` (or list of labels) spanning H.
+        solver: ``"lbfgs"`` (exact gradient, default) or ``"adam"`` (noisy moments).
+        l2: L2 penalty strength ``lam`` in ``(lam/2)|theta|^2``.
+        tol: stop when the gradient norm is at most ``tol``.
+        max_iter: iteration cap.
+        learning_rate: Adam step size.
+        engine: Gibbs engine name (``"dense"``).
+        init_scale: standard deviation of the random initial coefficients (0 = start at 0).
+        seed: seed for the initial coefficients.
+        progress: show a progress bar on stderr.
+        checkpoint: optional ``.npz`` path; the fit saves there and resumes from it.
+
+    Attributes:
+        coef_: fitted coefficients theta.
+        target_moments_: data moments m.
+        data_entropy_: S(rho) in nats.
+        loss_: final S(rho||sigma) (without the penalty).
+        grad_norm_: final gradient norm (with the penalty).
+        n_iter_: iterations used. converged_: whether ``grad_norm_ <= tol``.
+        history_: dict of per-iteration ``loss`` and ``grad_norm`` lists.
+
+    Examples:
+        >>> from pretrain import VisibleGibbsModel, graph_terms
+        >>> import numpy as np
+        >>> terms = graph_terms(2, "line", fields="Z", couplings=("ZZ",))
+        >>> rho = np.diag([0.4, 0.3, 0.2, 0.1]).astype(complex)
+        >>> model = VisibleGibbsModel(terms).fit(rho)
+        >>> bool(model.converged_)
+        True
+    """
+
+    def __init__(
+        self,
+        terms,
+        *,
+        solver: str = "lbfgs",
+        l2: float = 0.0,
+        tol: float = 1e-6,
+        max_iter: int = 500,
+        learning_rate: float = 0.05,
+        engine: str = "dense",
+        init_scale: float = 0.0,
+        seed: int | None = 0,
+        progress: bool = False,
+        checkpoint: str | None = None,
+    ):
+        self.terms = terms
+        self.solver = solver
+        self.l2 = l2
+        self.tol = tol
+        self.max_iter = max_iter
+        self.learning_rate = learning_rate
+        self.engine = engine
+        self.init_scale = init_scale
+        self.seed = seed
+        self.progress = progress
+        self.checkpoint = checkpoint
+
+    # ------------------------------------------------------------------ fitting
+    def _term_set(self) -> TermSet:
+        return self.terms if isinstance(self.terms, TermSet) else TermSet(self.terms)
+
+    def _check_settings(self) -> None:
+        if self.solver not in SOLVERS:
+            raise ThermoseedError(f"solver must be one of {SOLVERS}, got {self.solver!r}")
+        for name in ("l2", "init_scale"):
+            value = getattr(self, name)
+            if not np.isfinite(value) or value < 0:
+                raise ThermoseedError(f"{name} must be a finite number >= 0, got {value!r}")
+        if not (np.isfinite(self.tol) and self.tol > 0):
+            raise ThermoseedError(f"tol must be > 0, got {self.tol!r}")
+        if int(self.max_iter) < 1:
+            raise ThermoseedError(f"max_iter must be >= 1, got {self.max_iter!r}")
+
+    def loss_and_grad(self, theta: np.ndarray, moments: np.ndarray, data_entropy: float):
+        """``(L(theta), dL/dtheta)`` for target moments ``m`` (penalty included)."""
+        ev = self._engine.evaluate(theta)
+        loss = -data_entropy + float(theta @ moments) + ev.log_z
+        loss += 0.5 * self.l2 * float(theta @ theta)
+        return loss, moments - ev.moments + self.l2 * theta
+
+    def fit(self, data, *, callback: Callback | None = None, kind: str | None = None):
+        """Fit to training data (anything ``as_training_data`` accepts) and return self."""
+        self._check_settings()
+        terms = self._term_set()
+        if isinstance(data, np.ndarray) and data.ndim == 2 and kind is None:
+            kind = "density" if data.shape[0] == data.shape[1] else None
+        td: TrainingData = as_training_data(data, kind=kind)
+        check_qubits(td.n_qubits, terms)
+        self._engine = make_engine(self.engine, terms)
+        moments = td.moments(terms)
+        entropy = td.entropy()
+        rank_deficient = np.linalg.eigvalsh(td.rho).min() < RANK_FLOOR
+        rng = np.random.default_rng(self.seed)
+        theta0 = self.init_scale * rng.standard_normal(len(terms))
+        result = minimize(
+            lambda th: self.loss_and_grad(th, moments, entropy),
+            theta0,
+            solver=self.solver,
+            tol=self.tol,
+            max_iter=int(self.max_iter),
+            learning_rate=self.learning_rate,
+            callback=callback,
+            progress=self.progress,
+            checkpoint=self.checkpoint,
+        )
+        self.terms_ = terms
+        self.coef_ = result.x
+        self.target_moments_ = moments
+        self.data_entropy_ = entropy
+        self.loss_ = result.loss - 0.5 * self.l2 * float(result.x @ result.x)
+        self.grad_norm_ = result.grad_norm
+        self.n_iter_ = result.n_iter
+        self.converged_ = result.converged
+        self.history_ = result.history
+        largest = float(np.abs(self.coef_).max())
+        if largest > DIVERGENCE_COEF or (rank_deficient and not self.converged_ and self.l2 == 0):
+            warnings.warn(
+                f"coefficients are diverging (largest |theta| = {largest:.3g}, converged = "
+                f"{self.converged_}): the data are (near) rank-deficient and a Gibbs state is "
+                "full rank, so the optimum lies at infinity; set l2 > 0 (e.g. 1e-3)",
+                DivergenceWarning,
+                stacklevel=2,
+            )
+        return self
+
+    @classmethod
+    def from_coefficients(cls, terms, coef, **params) -> VisibleGibbsModel:
+        """A model with given coefficients, as if fitted (for known Hamiltonians and files)."""
+        model = cls(terms, **params)
+        model.terms_ = model._term_set()
+        model.coef_ = check_coefficients(coef, model.terms_)
+        return model
+
+    # ------------------------------------------------------------------ fitted queries
+    def _evaluate(self, want_state: bool = False):
+        check_is_fitted(self, "coef_")
+        if not hasattr(self, "_engine"):
+            self._engine = make_engine(self.engine, self.terms_)
+        return self._engine.evaluate(self.coef_, want_state=want_state)
+
+    def hamiltonian(self) -> np.ndarray:
+        """Dense ``H(theta) = sum_j theta_j P_j``."""
+        check_is_fitted(self, "coef_")
+        return dense_hamiltonian(self.coef_, self.terms_)
+
+    def state(self) -> np.ndarray:
+        """The model density matrix ``sigma = exp(-H)/Z`` (complex, 2^n x 2^n)."""
+        return self._evaluate(want_state=True).state.astype(complex)
+
+    def moments(self) -> np.ndarray:
+        """Model moments ``<P_j>_sigma``."""
+        return self._evaluate().moments
+
+    def log_partition(self) -> float:
+        """``log Z(theta)``."""
+        return self._evaluate().log_z
+
+    def spectrum(self) -> np.ndarray:
+        """Eigenvalues of H(theta), ascending."""
+        return self._evaluate().energies
+
+    def relative_entropy(self, rho) -> float:
+        """``S(rho||sigma) = -S(rho) + Tr(rho H) + log Z`` for any density matrix rho."""
+        check_is_fitted(self, "coef_")
+        r = check_density_matrix(rho)
+        if r.shape[0] != self.terms_.dim:
+            raise ThermoseedError(
+                f"density matrix is {r.shape[0]}x{r.shape[0]} but the model acts on "
+                f"{self.terms_.n_qubits} qubits"
+            )
+        m = expectations(r, self.terms_)
+        return -von_neumann_entropy(r) + float(self.coef_ @ m) + self.log_partition()
+
+    def save(self, path) -> Path:
+        """Write a versioned model file (see ``pretrain.io``)."""
+        from .io import save_model
+
+        return save_model(self, path)
