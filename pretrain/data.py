@@ -10,7 +10,6 @@ optional ``weights`` (B,) positive; optional ``labels`` (B,) integers (used by b
 
 from __future__ import annotations
 
-import zipfile
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import ThermoseedError
+from .files import CORRUPT_FILE_ERRORS
 from .linalg import von_neumann_entropy
 from .paulis import TermSet, expectations
 
@@ -242,7 +242,7 @@ def load_training_data(path, *, kind: str | None = None, renormalize: bool = Fal
         raise ThermoseedError(f"data file {str(p)!r} does not exist")
     try:
         loaded = np.load(p, allow_pickle=False)
-    except (ValueError, OSError, zipfile.BadZipFile, EOFError) as err:
+    except CORRUPT_FILE_ERRORS as err:
         raise ThermoseedError(f"cannot read data file {str(p)!r}: {err}") from err
     if isinstance(loaded, np.ndarray):
         return as_training_data(loaded, kind=kind, renormalize=renormalize)
@@ -257,7 +257,7 @@ def load_training_data(path, *, kind: str | None = None, renormalize: bool = Fal
             if "density" in keys:
                 return from_density_matrices(loaded["density"], weights, labels=labels,
                                              renormalize=renormalize)
-        except (ValueError, OSError, zipfile.BadZipFile) as err:
+        except CORRUPT_FILE_ERRORS as err:
             if isinstance(err, ThermoseedError):
                 raise ThermoseedError(f"{p}: {err}") from err
             raise ThermoseedError(f"cannot read data file {str(p)!r}: {err}") from err

@@ -5,12 +5,21 @@ from __future__ import annotations
 import io
 import os
 import tempfile
+import tokenize
 import zipfile
 from pathlib import Path
 
 import numpy as np
 
 from .errors import ThermoseedError
+
+#: What numpy/zipfile raise on a damaged file: truncated members (EOFError), mangled zip
+#: headers (NotImplementedError: "compression method"; RuntimeError: "encrypted"), a mangled
+#: ``.npy`` header dict (tokenize.TokenError, SyntaxError).
+CORRUPT_FILE_ERRORS = (
+    ValueError, OSError, EOFError, KeyError, zipfile.BadZipFile, NotImplementedError,
+    RuntimeError, tokenize.TokenError, SyntaxError,
+)
 
 
 def atomic_write_bytes(path, payload: bytes) -> Path:
@@ -46,7 +55,12 @@ def load_npz(path, *, what: str = "file") -> dict[str, np.ndarray]:
     if not p.exists():
         raise ThermoseedError(f"{what} {str(p)!r} does not exist")
     try:
-        with np.load(p, allow_pickle=False) as loaded:
+        loaded = np.load(p, allow_pickle=False)
+        if isinstance(loaded, np.ndarray):
+            raise ThermoseedError(f"{what} {str(p)!r} is a single .npy array, not an .npz file")
+        with loaded:
             return {key: loaded[key] for key in loaded.files}
-    except (ValueError, OSError, EOFError, zipfile.BadZipFile, KeyError) as err:
+    except ThermoseedError:
+        raise
+    except CORRUPT_FILE_ERRORS as err:
         raise ThermoseedError(f"{what} {str(p)!r} is corrupt or not an .npz file: {err}") from err

@@ -78,11 +78,13 @@ class _Recorder:
         self.checkpoint = checkpoint
         self.checkpoint_every = checkpoint_every
         self.stopped_by_callback = False
+        self.last_extra: dict[str, np.ndarray] = {}
         self.bar = tqdm(total=max_iter, initial=step, disable=not progress, file=sys.stderr,
                         desc="fit", leave=False)
 
     def record(self, x, loss, grad, extra: dict[str, np.ndarray] | None = None) -> bool:
         self.step += 1
+        self.last_extra = extra or {}
         gnorm = float(np.linalg.norm(grad))
         self.history["loss"].append(float(loss))
         self.history["grad_norm"].append(gnorm)
@@ -175,7 +177,7 @@ def minimize(
             stacklevel=3,
         )
     if checkpoint is not None:
-        save_checkpoint(checkpoint, x, rec.step, rec.history, {})
+        save_checkpoint(checkpoint, x, rec.step, rec.history, rec.last_extra or extra)
     return FitResult(x, float(loss), gnorm, rec.step, converged, rec.history)
 
 

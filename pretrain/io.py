@@ -102,6 +102,9 @@ def load_model(path):
     if "target_moments" in arrays:
         model.target_moments_ = arrays["target_moments"]
     if "history_loss" in arrays:
+        if "history_grad_norm" not in arrays:
+            raise ThermoseedError(f"model file {str(path)!r} is incomplete: missing "
+                                  "'history_grad_norm'")
         model.history_ = {"loss": arrays["history_loss"].tolist(),
                           "grad_norm": arrays["history_grad_norm"].tolist()}
     return model

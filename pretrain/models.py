@@ -26,6 +26,10 @@ from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
 DIVERGENCE_COEF = 25.0
 #: Smallest data eigenvalue below which the data count as rank-deficient.
 RANK_FLOOR = 1e-10
+#: With rank-deficient data and l2 = 0, a fitted sigma keeping less than this share of its
+#: weight on the data's null space is chasing that share to zero: the optimum is at infinity
+#: even when the gradient already meets ``tol`` (round-off zeroes it near |theta| ~ 18).
+NULL_WEIGHT_FLOOR = 1e-4
 
 
 class VisibleGibbsModel(ParamsMixin):
@@ -108,6 +112,8 @@ class VisibleGibbsModel(ParamsMixin):
 
     def loss_and_grad(self, theta: np.ndarray, moments: np.ndarray, data_entropy: float):
         """``(L(theta), dL/dtheta)`` for target moments ``m`` (penalty included)."""
+        if not hasattr(self, "_engine"):
+            self._engine = make_engine(self.engine, self._term_set())
         ev = self._engine.evaluate(theta)
         loss = -data_entropy + float(theta @ moments) + ev.log_z
         loss += 0.5 * self.l2 * float(theta @ theta)
@@ -148,7 +154,15 @@ class VisibleGibbsModel(ParamsMixin):
         self.converged_ = result.converged
         self.history_ = result.history
         largest = float(np.abs(self.coef_).max())
-        if largest > DIVERGENCE_COEF or (rank_deficient and not self.converged_ and self.l2 == 0):
+        chasing_null_space = False
+        if rank_deficient and self.l2 == 0:
+            vals, vecs = np.linalg.eigh(td.rho)
+            null = vecs[:, vals < RANK_FLOOR]
+            sigma = self._engine.evaluate(self.coef_, want_state=True).state
+            null_weight = np.einsum("ai,ab,bi->", null.conj(), sigma, null).real
+            chasing_null_space = null_weight < NULL_WEIGHT_FLOOR
+        if (largest > DIVERGENCE_COEF or chasing_null_space
+                or (rank_deficient and not self.converged_ and self.l2 == 0)):
             warnings.warn(
                 f"coefficients are diverging (largest |theta| = {largest:.3g}, converged = "
                 f"{self.converged_}): the data are (near) rank-deficient and a Gibbs state is "
