@@ -2,7 +2,8 @@
 
 An ``Ansatz`` is structure only: a quantum function ``qfunc(params, wires)``, its parameter
 shape and its wires. Building the circuit is a pure function of (params, wires); ``unitary``
-returns the full matrix ``U(phi)`` differentiably (autograd) from one broadcast
+returns the full matrix ``U(phi)`` differentiably (autograd): built-in templates through the
+closed-form simulation in ``bridge.unitaries``, a user's function through one broadcast
 ``default.qubit`` run with ``StatePrep(I)``.
 
 Built-in templates (``n_layers`` layers on ``n`` wires):
@@ -23,6 +24,8 @@ import numpy as np
 import pennylane as qml
 
 from pretrain.errors import ThermoseedError
+
+from .unitaries import template_apply
 
 
 def _ladder(params, wires):
@@ -195,8 +198,21 @@ def columns(gates: Callable[[object], None], params, n_wires: int, basis=None):
     return out if len(basis) > 1 else out[None, :]
 
 
+def ansatz_columns(ansatz: Ansatz, params, basis=None):
+    """Rows ``U(params)|x>`` for basis indices ``x`` (default all), differentiably.
+
+    Built-in templates use the closed-form tensor simulation in ``bridge.unitaries``;
+    a user's function runs through ``columns`` (one broadcast ``default.qubit`` run).
+    """
+    ansatz.check(params)
+    n = ansatz.n_wires
+    if ansatz.builtin:
+        d = 2**n
+        block = np.eye(d) if basis is None else np.eye(d)[:, np.asarray(basis)]
+        return qml.math.transpose(template_apply(ansatz.name, params, n, block))
+    return columns(lambda p: ansatz(p, range(n)), params, n, basis)
+
+
 def unitary(ansatz: Ansatz, params):
     """The full matrix ``U(params)`` on the ansatz's wires, differentiably (autograd)."""
-    ansatz.check(params)
-    rows = columns(lambda p: ansatz(p, range(ansatz.n_wires)), params, ansatz.n_wires)
-    return qml.math.transpose(rows)
+    return qml.math.transpose(ansatz_columns(ansatz, params))

@@ -1,0 +1,335 @@
+"""Compile a fitted Gibbs model sigma = exp(-H)/Z into a parameterised circuit.
+
+Latent form: ``sigma~ = U diag(q) U^dag`` with q on a few basis states. Objective
+    ``S(sigma~||sigma) = -H(q) + sum_x q_x <x|U^dag H U|x> + log Z  (>= 0)``,
+zero exactly when U maps latent basis state x_i to the i-th eigenvector and q matches the
+spectrum. ``latent="spectrum"``: q = top-k eigenvalues of sigma (sorted, renormalised, on basis
+states 0..k-1); its floor is ``-log(captured weight)``. ``latent="product"``: q a product of
+Bernoulli(p_k) with trainable logits (the variational-quantum-thermalizer form).
+
+Purified form: a circuit W on visible + ancilla wires from |0...0>, objective
+``S(Tr_anc W|0><0|W^dag || sigma) = -S(rho_v) + Tr(rho_v H) + log Z``.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import NamedTuple
+
+import autograd
+import autograd.numpy as anp
+import numpy as np
+from autograd.extend import defvjp, primitive
+from tqdm.auto import tqdm
+
+from pretrain.diagnostics import fidelity, relative_entropy, trace_distance
+from pretrain.errors import ConvergenceWarning, ThermoseedError
+from pretrain.fit import minimize
+from pretrain.linalg import ENTROPY_FLOOR, entropy_of_spectrum, log_sum_exp_neg
+
+from .ansatz import Ansatz, ansatz_columns
+
+LATENT_KINDS = ("spectrum", "product")
+FORMS = ("latent", "purified")
+
+
+class Latent(NamedTuple):
+    """Latent distribution: probabilities ``probs`` on basis indices ``basis``."""
+
+    kind: str
+    basis: np.ndarray
+    probs: np.ndarray
+    captured: float  # weight of sigma's spectrum the latent support can hold (spectrum form)
+
+
+class CompileReport(NamedTuple):
+    """How close the compiled state is to the model sigma and to the training data rho."""
+
+    objective: float
+    floor: float
+    model_relative_entropy: float
+    model_fidelity: float
+    model_trace_distance: float
+    data_relative_entropy: float | None
+    data_fidelity: float | None
+    data_trace_distance: float | None
+    converged: bool
+    restarts: int
+
+
+@dataclass
+class CompileResult:
+    """Output of ``compile_latent`` / ``compile_purified``.
+
+    Attributes:
+        form: ``"latent"`` or ``"purified"``.
+        ansatz: the circuit template (on the visible wires, or visible + ancilla wires).
+        params: compiled parameters, shape ``ansatz.shape``.
+        latent: the latent distribution (latent form) or None.
+        report: distances to the model and the data.
+        n_visible: number of visible qubits.
+        model_terms / model_coef: the Gibbs model compiled (labels and coefficients).
+        history: per-iteration objective of the best restart.
+    """
+
+    form: str
+    ansatz: Ansatz
+    params: np.ndarray
+    latent: Latent | None
+    report: CompileReport
+    n_visible: int
+    model_terms: list[str]
+    model_coef: np.ndarray
+    history: list[float] = field(default_factory=list)
+
+    def state(self) -> np.ndarray:
+        """The compiled density matrix on the visible wires."""
+        if self.form == "latent":
+            rows = np.asarray(ansatz_columns(self.ansatz, self.params, self.latent.basis))
+            return (rows.T * self.latent.probs) @ rows.conj()
+        psi = np.asarray(ansatz_columns(self.ansatz, self.params, [0]))[0]
+        m = psi.reshape(2**self.n_visible, -1)
+        return m @ m.conj().T
+
+    def preparation(self, seed: int | None = None):
+        """A quantum function preparing the compiled state on wires ``0..n-1``.
+
+        Latent form: samples x from q with ``seed`` (one shot of the classical mixture), then
+        prepares |x> and applies U. Purified form: W on visible + ancilla wires (deterministic).
+        """
+        if self.form == "purified":
+            return lambda: self.ansatz(self.params, range(self.ansatz.n_wires))
+        rng = np.random.default_rng(seed)
+        x = int(rng.choice(self.latent.basis, p=self.latent.probs))
+        bits = [(x >> (self.n_visible - 1 - k)) & 1 for k in range(self.n_visible)]
+
+        def prepare():
+            import pennylane as qml
+
+            qml.BasisState(np.array(bits), wires=range(self.n_visible))
+            self.ansatz(self.params, range(self.n_visible))
+
+        return prepare
+
+    def mixed_preparation(self):
+        """Quantum function on ``2n`` wires whose visible reduced state is exactly sigma~:
+        ``sum_x sqrt(q_x)|x>|x>`` (StatePrep + CNOT copies onto ancillas n..2n-1), then U."""
+        if self.form != "latent":
+            raise ThermoseedError("mixed_preparation is for the latent form; use preparation()")
+        n = self.n_visible
+        amp = np.zeros(2**n)
+        amp[self.latent.basis] = np.sqrt(self.latent.probs)
+
+        def prepare():
+            import pennylane as qml
+
+            qml.StatePrep(amp, wires=range(n))
+            for k in range(n):
+                qml.CNOT(wires=[k, n + k])
+            self.ansatz(self.params, range(n))
+
+        return prepare
+
+    def encoder(self):
+        """Quantum function ``encoder(wires=None)`` applying ``U(params)^dag`` (data -> latent)."""
+        if self.form != "latent":
+            raise ThermoseedError("the encoder orientation exists for the latent form only")
+        return lambda wires=None: self.ansatz.adjoint(self.params, wires)
+
+    def save(self, path):
+        from .compile_io import save_compile
+
+        return save_compile(self, path)
+
+
+# ------------------------------------------------------------------------------ objectives
+
+
+@primitive
+def _entropy_of_factor(m):
+    """``S(M M^dag)`` in nats for a complex matrix M (von Neumann entropy of rho = M M^dag)."""
+    return entropy_of_spectrum(np.linalg.eigvalsh(m @ m.conj().T))
+
+
+def _entropy_vjp(ans, m):
+    rho = m @ m.conj().T
+    vals, vecs = np.linalg.eigh(0.5 * (rho + rho.conj().T))
+    logs = np.log(np.maximum(vals, ENTROPY_FLOOR)) + 1.0
+    # dS = -Tr((log rho + I) d rho); autograd's gradient for real f of complex M is 2 df/dM.
+    lm = (vecs * logs) @ vecs.conj().T @ m
+    return lambda g: -2.0 * g * np.conj(lm)
+
+
+defvjp(_entropy_of_factor, _entropy_vjp)
+
+
+def _energies(rows, h):
+    """``E_i = <c_i|H|c_i>`` for rows ``c_i`` (autograd-friendly)."""
+    return anp.real(anp.sum(anp.conj(rows) * anp.dot(rows, h.T), axis=1))
+
+
+def _bernoulli_product(logits, n):
+    """q_x = prod_k p_k^{1-x_k} (1-p_k)^{x_k}, p_k = sigmoid(logit_k); bit k = wire k (MSB)."""
+    p = 1.0 / (1.0 + anp.exp(-logits))
+    bits = (np.arange(2**n)[:, None] >> (n - 1 - np.arange(n))[None, :]) & 1
+    factors = (1 - bits) * p + bits * (1.0 - p)
+    q = anp.prod(factors, axis=1)
+    ent = -anp.sum(p * anp.log(p + 1e-300) + (1 - p) * anp.log(1 - p + 1e-300))
+    return q, ent
+
+
+def spectrum_latent(model_energies: np.ndarray, *, k: int | None = None,
+                    weight: float = 0.999) -> Latent:
+    """Top-k eigenvalues of sigma (k given, or the fewest reaching cumulative ``weight``),
+    renormalised and placed on basis states 0..k-1."""
+    _, probs = log_sum_exp_neg(model_energies)
+    order = np.sort(probs)[::-1]
+    if k is None:
+        if not 0 < weight <= 1:
+            raise ThermoseedError(f"weight must be in (0, 1], got {weight}")
+        k = int(np.searchsorted(np.cumsum(order), weight - 1e-12) + 1)
+    k = int(min(max(k, 1), len(order)))
+    top = order[:k]
+    return Latent("spectrum", np.arange(k), top / top.sum(), float(top.sum()))
+
+
+def _check_model(model, ansatz: Ansatz, n_wires: int):
+    if not hasattr(model, "coef_") or not hasattr(model, "terms_"):
+        raise ThermoseedError("compile needs a fitted Gibbs model (call fit, or load_model)")
+    n = model.terms_.n_qubits
+    if n_wires != n:
+        raise ThermoseedError(
+            f"the ansatz acts on {n_wires} wires but the model has {n} visible qubits"
+        )
+    return n
+
+
+def _restart_inits(ansatz: Ansatz, extra: int, restarts: int, seed: int, init_scale: float):
+    if restarts < 1:
+        raise ThermoseedError(f"restarts must be >= 1, got {restarts}")
+    for child in np.random.SeedSequence(seed).spawn(restarts):
+        rng = np.random.default_rng(child)
+        yield np.concatenate([rng.uniform(0, init_scale, ansatz.n_params), np.zeros(extra)])
+
+
+def _optimise(objective, inits, *, max_iter, tol, progress, desc):
+    value_and_grad = autograd.value_and_grad(objective)
+
+    def loss_and_grad(x):
+        value, grad = value_and_grad(x)
+        return float(value), np.asarray(grad, dtype=float)
+
+    best = None
+    for x0 in tqdm(list(inits), desc=desc, disable=not progress, leave=False):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter)
+        if best is None or result.loss < best.loss:
+            best = result
+    return best
+
+
+def _report(result: CompileResult, objective: float, floor: float, converged: bool,
+            restarts: int, sigma: np.ndarray, data_rho) -> CompileReport:
+    compiled = result.state()
+    data = (None, None, None)
+    if data_rho is not None:
+        data = (relative_entropy(data_rho, compiled), fidelity(compiled, data_rho),
+                trace_distance(compiled, data_rho))
+    return CompileReport(
+        objective, floor, relative_entropy(compiled, sigma), fidelity(compiled, sigma),
+        trace_distance(compiled, sigma), *data, converged, restarts)
+
+
+def compile_latent(
+    model, ansatz: Ansatz, *, latent: str = "spectrum", k: int | None = None,
+    weight: float = 0.999, restarts: int = 3, seed: int = 0, max_iter: int = 300,
+    tol: float = 1e-6, init_scale: float = 2 * np.pi, data=None, progress: bool = False,
+) -> CompileResult:
+    """Latent-form compile of a fitted model into ``ansatz`` (see module docstring).
+
+    ``data``: optional training density matrix (or ``TrainingData``) for the report.
+    Restarts start from uniform parameters on ``[0, init_scale)``; the best is kept.
+    """
+    if latent not in LATENT_KINDS:
+        raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
+    n = _check_model(model, ansatz, ansatz.n_wires)
+    h = np.asarray(model.hamiltonian())
+    energies = np.asarray(model.spectrum())
+    log_z, _ = log_sum_exp_neg(energies)
+
+    npar = ansatz.n_params
+    if latent == "spectrum":
+        lat = spectrum_latent(energies, k=k, weight=weight)
+        q = lat.probs
+        neg_entropy = -entropy_of_spectrum(q)
+
+        def objective(x):
+            rows = ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), lat.basis)
+            return neg_entropy + anp.dot(q, _energies(rows, h)) + log_z
+
+        extra, floor = 0, -float(np.log(lat.captured))
+    else:
+
+        def objective(x):
+            rows = ansatz_columns(ansatz, anp.reshape(x[:npar], ansatz.shape))
+            qx, ent = _bernoulli_product(x[npar:], n)
+            return -ent + anp.dot(qx, _energies(rows, h)) + log_z
+
+        extra, floor = n, 0.0
+
+    best = _optimise(objective, _restart_inits(ansatz, extra, restarts, seed, init_scale),
+                     max_iter=max_iter, tol=tol, progress=progress, desc="compile")
+    params = best.x[:npar].reshape(ansatz.shape)
+    if latent == "product":
+        qx, _ = _bernoulli_product(best.x[npar:], n)
+        keep = np.flatnonzero(np.asarray(qx) > 0)
+        lat = Latent("product", keep, np.asarray(qx)[keep] / np.sum(qx), 1.0)
+    result = CompileResult("latent", ansatz, params, lat, None, n, list(model.terms_.labels),
+                           np.asarray(model.coef_, float), best.history["loss"])
+    result.report = _report(result, best.loss, floor, best.converged, restarts,
+                            model.state(), _data_rho(data))
+    return result
+
+
+def compile_purified(
+    model, ansatz: Ansatz, *, n_visible: int | None = None, restarts: int = 3, seed: int = 0,
+    max_iter: int = 300, tol: float = 1e-6, init_scale: float = 2 * np.pi, data=None,
+    progress: bool = False,
+) -> CompileResult:
+    """Purified-form compile: ``ansatz`` acts on visible wires 0..n-1 plus ancillas n..;
+    minimises ``S(rho_v || sigma)`` of the visible reduced state of ``W|0...0>``."""
+    n = model.terms_.n_qubits if n_visible is None else int(n_visible)
+    _check_model(model, ansatz, n)
+    if ansatz.n_wires <= n:
+        raise ThermoseedError(
+            f"the purified form needs ancilla wires: the ansatz has {ansatz.n_wires} wires for "
+            f"{n} visible qubits; use an ansatz on {2 * n} wires"
+        )
+    h = np.asarray(model.hamiltonian())
+    log_z = model.log_partition()
+    dv = 2**n
+
+    def objective(x):
+        psi = ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), [0])[0]
+        m = anp.reshape(psi, (dv, -1))
+        energy = anp.real(anp.sum(anp.conj(m) * anp.dot(h, m)))
+        return -_entropy_of_factor(m) + energy + log_z
+
+    best = _optimise(objective, _restart_inits(ansatz, 0, restarts, seed, init_scale),
+                     max_iter=max_iter, tol=tol, progress=progress, desc="compile")
+    result = CompileResult("purified", ansatz, best.x.reshape(ansatz.shape), None, None, n,
+                           list(model.terms_.labels), np.asarray(model.coef_, float),
+                           best.history["loss"])
+    result.report = _report(result, best.loss, 0.0, best.converged, restarts, model.state(),
+                            _data_rho(data))
+    return result
+
+
+def _data_rho(data):
+    if data is None:
+        return None
+    from pretrain.data import as_training_data
+
+    return as_training_data(data, kind="density" if np.ndim(data) == 2 else None).rho

@@ -1,0 +1,74 @@
+"""Warm start: parameters for the downstream circuit from a compiled Gibbs model.
+
+Downstream layout (DESIGN.md section 6): data state -> encoder ``U(phi)^dag`` -> head -> readout.
+The warm start puts the compiled ``phi`` in the encoder and the head at exactly the identity,
+so at step 0 the circuit maps the data into the latent basis where the model's probability
+concentrates. With no head, the parameters are the compiled ``phi`` in the ansatz's own shape.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from pennylane import numpy as pnp
+
+from pretrain.errors import ThermoseedError
+
+from .ansatz import Ansatz
+from .compile import CompileResult, compile_latent
+
+#: Built-in heads whose all-zero parameters are exactly the identity.
+IDENTITY_AT_ZERO = ("soft",)
+
+
+def identity_head(head: Ansatz, head_identity=None) -> np.ndarray:
+    """Parameters at which ``head`` is the identity: zeros for the ``"soft"`` template, or the
+    user's ``head_identity`` (checked against the head's shape)."""
+    if head_identity is not None:
+        return np.asarray(head.check(np.asarray(head_identity, dtype=float)))
+    if head.builtin and head.name in IDENTITY_AT_ZERO:
+        return np.zeros(head.shape)
+    raise ThermoseedError(
+        f"head {head.name!r} is not the identity at zero parameters; use the 'soft' template or "
+        "pass head_identity=<parameters at which your head is the identity>"
+    )
+
+
+def warm_start(
+    source, *, ansatz: Ansatz | None = None, head: Ansatz | None = None, head_identity=None,
+    seed: int = 0, restarts: int = 3, data=None,
+) -> pnp.ndarray:
+    """Trainable warm-start parameters (``pennylane.numpy``, ``requires_grad=True``).
+
+    Args:
+        source: a ``CompileResult``, or a fitted Gibbs model (compiled here into ``ansatz``
+            with ``seed``/``restarts``; ``data`` is passed on for the compile report).
+        ansatz: the encoder ansatz (needed when ``source`` is a model).
+        head: optional head ansatz; then the result is one flat vector
+            ``[phi.ravel(), head_identity.ravel()]``, else ``phi`` in ``ansatz.shape``.
+        head_identity: head parameters giving the identity (default zeros of ``"soft"``).
+
+    Returns:
+        ``pnp.ndarray`` ready for the user's optimiser.
+    """
+    if isinstance(source, CompileResult):
+        result = source
+        if ansatz is not None and ansatz.shape != result.ansatz.shape:
+            raise ThermoseedError(
+                f"the compile result is for parameter shape {result.ansatz.shape}, but the "
+                f"given ansatz has shape {ansatz.shape}"
+            )
+    elif hasattr(source, "coef_"):
+        if ansatz is None:
+            raise ThermoseedError("warm_start from a fitted model needs ansatz=<encoder ansatz>")
+        result = compile_latent(source, ansatz, seed=seed, restarts=restarts, data=data)
+    else:
+        raise ThermoseedError(
+            f"warm_start needs a CompileResult or a fitted Gibbs model, got {type(source)!r}"
+        )
+    if result.form != "latent":
+        raise ThermoseedError("warm starts use the latent form (encoder = U^dag); recompile")
+    phi = np.asarray(result.params, dtype=float)
+    if head is None:
+        return pnp.array(phi, requires_grad=True)
+    flat = np.concatenate([phi.ravel(), identity_head(head, head_identity).ravel()])
+    return pnp.array(flat, requires_grad=True)
