@@ -26,10 +26,12 @@ from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
 DIVERGENCE_COEF = 25.0
 #: Smallest data eigenvalue below which the data count as rank-deficient.
 RANK_FLOOR = 1e-10
-#: With rank-deficient data and l2 = 0, a fitted sigma keeping less than this share of its
-#: weight on the data's null space is chasing that share to zero: the optimum is at infinity
-#: even when the gradient already meets ``tol`` (round-off zeroes it near |theta| ~ 18).
-NULL_WEIGHT_FLOOR = 1e-4
+#: Divergence rule of thumb for rank-deficient data without a penalty: the fitted sigma keeps
+#: more than NULL_EXCESS times the data's weight on the data's (numerical) null space while
+#: some |theta| exceeds RANK_DEFICIENT_COEF. A pure state stalls there (its optimum is at
+#: |theta| -> inf); low-temperature thermal data match their tiny weights at finite theta.
+NULL_EXCESS = 1e3
+RANK_DEFICIENT_COEF = 5.0
 
 
 class VisibleGibbsModel(ParamsMixin):
@@ -154,15 +156,16 @@ class VisibleGibbsModel(ParamsMixin):
         self.converged_ = result.converged
         self.history_ = result.history
         largest = float(np.abs(self.coef_).max())
-        chasing_null_space = False
+        suspect = False
         if rank_deficient and self.l2 == 0:
             vals, vecs = np.linalg.eigh(td.rho)
-            null = vecs[:, vals < RANK_FLOOR]
+            null = vals < RANK_FLOOR
             sigma = self._engine.evaluate(self.coef_, want_state=True).state
-            null_weight = np.einsum("ai,ab,bi->", null.conj(), sigma, null).real
-            chasing_null_space = null_weight < NULL_WEIGHT_FLOOR
-        if (largest > DIVERGENCE_COEF or chasing_null_space
-                or (rank_deficient and not self.converged_ and self.l2 == 0)):
+            model_null = np.einsum("ai,ab,bi->", vecs[:, null].conj(), sigma, vecs[:, null]).real
+            data_null = float(np.clip(vals[null], 0.0, None).sum())
+            suspect = (not self.converged_) or (
+                largest > RANK_DEFICIENT_COEF and model_null > NULL_EXCESS * data_null)
+        if largest > DIVERGENCE_COEF or suspect:
             warnings.warn(
                 f"coefficients are diverging (largest |theta| = {largest:.3g}, converged = "
                 f"{self.converged_}): the data are (near) rank-deficient and a Gibbs state is "

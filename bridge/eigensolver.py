@@ -1,0 +1,64 @@
+"""Variational eigensolver on a built-in or user ansatz: minimise ``E(phi) = <0|U^dag H U|0>``.
+
+Used by the neighbour-warm-start scenario: a compile of a Gibbs model fitted at one
+Hamiltonian gives ``phi`` with ``U(phi)|0>`` near that model's most probable eigenvector,
+which seeds the eigensolver for a nearby Hamiltonian.
+"""
+
+from __future__ import annotations
+
+import sys
+from typing import NamedTuple
+
+import autograd
+import autograd.numpy as anp
+import numpy as np
+from tqdm.auto import tqdm
+
+from pretrain.errors import ThermoseedError
+from pretrain.fit import adam
+
+from .ansatz import Ansatz, ansatz_columns
+
+
+class EnergyRun(NamedTuple):
+    """Energies per step (index 0 = initial) and the first step within ``target``."""
+
+    params: np.ndarray
+    energies: list[float]
+    steps_to_target: int | None
+
+
+def energy(ansatz: Ansatz, params, hamiltonian: np.ndarray):
+    """``E(phi) = <0|U(phi)^dag H U(phi)|0>`` (autograd-differentiable)."""
+    psi = ansatz_columns(ansatz, params, [0])[0]
+    return anp.real(anp.dot(anp.conj(psi), anp.dot(hamiltonian, psi)))
+
+
+def run_eigensolver(
+    ansatz: Ansatz, hamiltonian: np.ndarray, params0, *, steps: int = 200,
+    learning_rate: float = 0.05, target: float | None = None, progress: bool = False,
+) -> EnergyRun:
+    """Adam on ``E(phi)`` for ``steps`` steps; ``target`` is an energy threshold
+    (the step count to reach ``E <= target`` is recorded, the run continues)."""
+    h = np.asarray(hamiltonian)
+    d = 2**ansatz.n_wires
+    if h.shape != (d, d) or not np.allclose(h, h.conj().T):
+        raise ThermoseedError(f"the Hamiltonian must be a Hermitian {d}x{d} matrix, got {h.shape}")
+    params = np.asarray(ansatz.check(np.asarray(params0, dtype=float)), dtype=float).copy()
+    value_and_grad = autograd.value_and_grad(lambda p: energy(ansatz, p, h))
+    opt = adam(learning_rate)
+    state = opt.init(params)
+    energies: list[float] = []
+    reached = None
+    for step in tqdm(range(steps + 1), disable=not progress, file=sys.stderr, desc="eigensolver",
+                     leave=False):
+        value, grad = value_and_grad(params)
+        energies.append(float(value))
+        if reached is None and target is not None and value <= target:
+            reached = step
+        if step == steps:
+            break
+        delta, state = opt.update(np.asarray(grad, dtype=float), state)
+        params = params + delta
+    return EnergyRun(params, energies, reached)
