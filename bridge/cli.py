@@ -1,0 +1,285 @@
+"""The ``thermoseed`` command line (also ``python -m bridge``).
+
+Parsing lives here; every subcommand is a thin wrapper over a public library call and
+imports the library late, so ``--help`` is instant. User errors (``ThermoseedError``) print
+one line on stderr and exit 1; argparse keeps exit 2 for usage errors; ``--debug`` re-raises.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from pretrain.errors import ThermoseedError
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+    return value
+
+
+def _nonneg_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}") from None
+    if not value >= 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a finite number >= 0, got {text!r}")
+    return value
+
+
+def _int_list(text: str) -> list[int]:
+    try:
+        values = [int(v) for v in text.split(",") if v.strip()]
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected comma-separated integers, e.g. 2,4,6, got {text!r}") from None
+    if not values or min(values) < 1:
+        raise argparse.ArgumentTypeError(f"expected positive integers, got {text!r}")
+    return values
+
+
+def _word_list(text: str) -> list[str]:
+    return [v.strip() for v in text.split(",") if v.strip()]
+
+
+def _json(payload) -> str:
+    """JSON with non-finite floats written as strings ("inf"), so any parser reads it."""
+
+    def clean(value):
+        if isinstance(value, float) and value != value or value in (float("inf"), float("-inf")):
+            return str(value)
+        if isinstance(value, dict):
+            return {k: clean(v) for k, v in value.items()}
+        if isinstance(value, (list, tuple)):
+            return [clean(v) for v in value]
+        return value
+
+    return json.dumps(clean(payload), default=str)
+
+
+def _add_common(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--quiet", action="store_true", help="no progress bars or chatter")
+    parser.add_argument("--debug", action="store_true", help="show Python tracebacks")
+
+
+def _say(args, message: str) -> None:
+    if not args.quiet:
+        print(message, file=sys.stderr)
+
+
+# ------------------------------------------------------------------------------ handlers
+
+
+def _cmd_fit(args) -> int:
+    from pretrain import VisibleGibbsModel, graph_terms, load_training_data
+
+    data = load_training_data(args.data, kind=args.kind, renormalize=args.renormalize)
+    terms = graph_terms(data.n_qubits, args.graph, fields=args.fields,
+                        couplings=args.couplings, extra=args.extra)
+    model = VisibleGibbsModel(terms, solver=args.solver, l2=args.l2, tol=args.tol,
+                              max_iter=args.max_iter, seed=args.seed,
+                              progress=not args.quiet, checkpoint=args.checkpoint)
+    model.fit(data)
+    path = model.save(args.out)
+    print(_json({"model": str(path), "n_qubits": data.n_qubits, "terms": len(terms),
+                      "relative_entropy": model.loss_, "grad_norm": model.grad_norm_,
+                      "iterations": model.n_iter_, "converged": bool(model.converged_)}))
+    return 0
+
+
+def _cmd_compile(args) -> int:
+    from pretrain import load_model, load_training_data
+
+    from .ansatz import make_ansatz
+    from .compile import compile_latent
+
+    model = load_model(args.model)
+    n = model.terms_.n_qubits
+    layers = args.layers or 2 * n
+    data = load_training_data(args.data).rho if args.data else None
+    result = compile_latent(model, make_ansatz(args.ansatz, n, layers), latent=args.latent,
+                            k=args.k, weight=args.weight, restarts=args.restarts,
+                            seed=args.seed, max_iter=args.max_iter, data=data,
+                            progress=not args.quiet)
+    path = result.save(args.out)
+    print(_json({"compile": str(path), "latent_states": len(result.latent.basis),
+                      **{k: v for k, v in result.report._asdict().items()}}))
+    return 0
+
+
+def _cmd_warm_start(args) -> int:
+    import numpy as np
+
+    from pretrain.files import atomic_save_npz
+
+    from .ansatz import make_ansatz
+    from .compile_io import load_compile
+    from .seed import warm_start
+
+    result = load_compile(args.compile)
+    head = make_ansatz(args.head, result.n_visible, args.head_layers) if args.head else None
+    params = np.asarray(warm_start(result, head=head))
+    path = atomic_save_npz(args.out, {"params": params,
+                                      "encoder_shape": np.array(result.ansatz.shape),
+                                      "head_shape": np.array(head.shape if head else [])})
+    print(_json({"params": str(path), "shape": list(params.shape)}))
+    return 0
+
+
+def _cmd_inspect(args) -> int:
+    import numpy as np
+
+    from pretrain.files import load_npz
+    from pretrain.io import read_record
+
+    try:
+        header, arrays = read_record(args.file)
+    except ThermoseedError:
+        header, arrays = {"format": "plain .npz arrays"}, load_npz(args.file, what="file")
+    shown = {k: {"shape": list(np.shape(v)), "dtype": str(np.asarray(v).dtype)}
+             for k, v in arrays.items()}
+    print(_json({"header": header, "arrays": shown}, indent=2))
+    return 0
+
+
+def _cmd_run(args) -> int:
+    from .pipeline import load_recipe, run_recipe
+
+    recipe = load_recipe(args.recipe, qubits=args.qubits, seed=args.seed, quick=args.quick)
+    out = Path(args.out) if args.out else Path("thermoseed-runs") / recipe["name"]
+    summary = run_recipe(recipe, out, progress=not args.quiet, workers=args.workers)
+    print(_json(summary))
+    _say(args, f"report: {out / 'report.md'}")
+    return 0
+
+
+# ------------------------------------------------------------------------------ parser
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The full argument parser (subcommands: fit, compile, warm-start, run, inspect)."""
+    parser = argparse.ArgumentParser(
+        prog="thermoseed",
+        description="Generative pre-training for variational quantum circuits: fit a Gibbs "
+                    "model to quantum data, compile it into a circuit, warm-start your "
+                    "classifier, and measure plateau behaviour.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser(
+        "fit", help="fit a Gibbs model to a data file (.npy/.npz)",
+        description="Fit a Gibbs model exp(-H)/Z over a Pauli term set by minimising the "
+                    "relative entropy S(rho||sigma) to the training states.",
+        epilog="example: thermoseed fit states.npz --graph ring --fields XZ "
+               "--couplings ZZ,XX --l2 1e-3 --out model.npz",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("data", help=".npy/.npz training data (README schema)")
+    p.add_argument("--out", required=True, help="model file to write (.npz)")
+    p.add_argument("--kind", choices=["states", "density"], help="for ambiguous .npy arrays")
+    p.add_argument("--renormalize", action="store_true", help="renormalise traces/norms")
+    p.add_argument("--graph", default="ring",
+                   choices=["line", "ring", "complete"], help="coupling graph (default ring)")
+    p.add_argument("--fields", default="XYZ", help="single-qubit letters (default XYZ)")
+    p.add_argument("--couplings", type=_word_list, default=["XX", "YY", "ZZ"],
+                   help="comma-separated letter pairs on each edge (default XX,YY,ZZ)")
+    p.add_argument("--extra", type=_word_list, default=[], help="extra Pauli labels")
+    p.add_argument("--solver", choices=["lbfgs", "adam"], default="lbfgs")
+    p.add_argument("--l2", type=_nonneg_float, default=0.0, help="L2 penalty (default 0)")
+    p.add_argument("--tol", type=_nonneg_float, default=1e-6, help="gradient-norm tolerance")
+    p.add_argument("--max-iter", type=_positive_int, default=500)
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--checkpoint", help="checkpoint file: saved during the fit, resumed from")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_fit)
+
+    p = sub.add_parser(
+        "compile", help="compile a fitted model into a parameterised circuit",
+        description="Latent-form compile: find circuit parameters phi with "
+                    "U(phi) diag(q) U(phi)^dag close to the fitted Gibbs state.",
+        epilog="example: thermoseed compile model.npz --ansatz strong --layers 8 "
+               "--out compile.npz",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("model", help="model file from 'thermoseed fit'")
+    p.add_argument("--out", required=True, help="compile file to write (.npz)")
+    p.add_argument("--ansatz", choices=["strong", "entangler", "ladder", "soft"],
+                   default="strong")
+    p.add_argument("--layers", type=_positive_int, help="layers (default 2 per qubit)")
+    p.add_argument("--latent", choices=["spectrum", "product"], default="spectrum")
+    p.add_argument("--k", type=_positive_int, help="latent basis states (default: by weight)")
+    p.add_argument("--weight", type=_nonneg_float, default=0.999,
+                   help="spectral weight the latent states must hold (default 0.999)")
+    p.add_argument("--restarts", type=_positive_int, default=3)
+    p.add_argument("--max-iter", type=_positive_int, default=300)
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--data", help="training data, for the report")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_compile)
+
+    p = sub.add_parser(
+        "warm-start", help="write warm-start parameters for a downstream circuit",
+        description="Encoder parameters from a compile plus an identity head, as one "
+                    "parameter array in an .npz (key 'params').",
+        epilog="example: thermoseed warm-start compile.npz --head soft --head-layers 1 "
+               "--out params.npz",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("compile", help="compile file")
+    p.add_argument("--out", required=True, help="parameter file to write (.npz)")
+    p.add_argument("--head", choices=["soft"], help="identity head template (omit: no head)")
+    p.add_argument("--head-layers", type=_positive_int, default=1)
+    _add_common(p)
+    p.set_defaults(handler=_cmd_warm_start)
+
+    p = sub.add_parser(
+        "run", help="run a recipe end to end (fit, compile, warm start, compare, report)",
+        description="Run a TOML recipe: built-in names are magnet-phase, probe-drift, "
+                    "neighbour-xxz; or give a path to your own .toml.",
+        epilog="examples:\n  thermoseed run magnet-phase\n"
+               "  thermoseed run my_recipe.toml --qubits 6 --out runs/six",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("recipe", help="built-in recipe name or path to a .toml file")
+    p.add_argument("--out", help="run folder (default thermoseed-runs/<name>)")
+    p.add_argument("--qubits", type=_positive_int, help="override the recipe's qubit count")
+    p.add_argument("--seed", type=int, help="override the recipe's seed")
+    p.add_argument("--quick", action="store_true", help="smallest settings (smoke run)")
+    p.add_argument("--workers", type=int, default=0, help="sweep worker processes (0 = all)")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_run)
+
+    p = sub.add_parser(
+        "inspect", help="show what is inside a model, compile or result file",
+        epilog="example: thermoseed inspect model.npz",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("file", )
+    _add_common(p)
+    p.set_defaults(handler=_cmd_inspect)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point; returns the exit code."""
+    args = build_parser().parse_args(argv)
+    try:
+        return args.handler(args) or 0
+    except ThermoseedError as err:
+        if args.debug:
+            raise
+        print(f"thermoseed: error: {err}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        if args.debug:
+            raise
+        print("thermoseed: interrupted; finished work is on disk, rerun the same command "
+              "to resume", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
