@@ -31,6 +31,8 @@ from pretrain.files import atomic_save_npz
 from pretrain.linalg import eigh
 from pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 
+from ._checks import inverse_temperature, qubit_count, real_number, seed_value
+
 #: Largest chain handled (dense 2^n x 2^n diagonalisation per sample).
 MAX_QUBITS = 12
 
@@ -95,29 +97,8 @@ class MagnetPhaseData:
         return atomic_save_npz(path, self.arrays())
 
 
-def _check_qubits(n_qubits: int) -> int:
-    if isinstance(n_qubits, bool) or not isinstance(n_qubits, (int, np.integer)):
-        raise ThermoseedError(f"n_qubits must be an integer, got {n_qubits!r}")
-    if not 2 <= n_qubits <= MAX_QUBITS:
-        raise ThermoseedError(
-            f"n_qubits = {n_qubits} is out of range; use 2 <= n_qubits <= {MAX_QUBITS}"
-        )
-    return int(n_qubits)
-
-
-def _real(value, what: str) -> float:
-    """``float(value)`` when it is a finite real number, else a ThermoseedError naming it."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as err:
-        raise ThermoseedError(f"{what} = {value!r} must be a real number") from err
-    if not np.isfinite(out):
-        raise ThermoseedError(f"{what} = {value!r} must be finite")
-    return out
-
-
 def _check_coupling(coupling: float) -> float:
-    if _real(coupling, "coupling J") <= 0:
+    if real_number(coupling, "coupling J") <= 0:
         raise ThermoseedError(
             f"coupling J = {coupling!r} must be positive (ferromagnetic chain); pass J > 0"
         )
@@ -132,7 +113,7 @@ def tfim_terms(n_qubits: int) -> TermSet:
 def tfim_coefficients(n_qubits: int, field: float, coupling: float = 1.0) -> np.ndarray:
     """Coefficients ``[-g] * n + [-J] * (n - 1)`` matching ``tfim_terms(n)``."""
     n = _check_qubits(n_qubits)
-    g = _real(field, "field g")
+    g = real_number(field, "field g")
     return np.concatenate([np.full(n, -g), np.full(n - 1, -_check_coupling(coupling))])
 
 
@@ -163,20 +144,12 @@ def gibbs_state(n_qubits: int, field: float, beta: float, coupling: float = 1.0)
     return DenseEngine(terms).evaluate(theta, want_state=True).state
 
 
-def _check_beta(beta: float) -> float:
-    if _real(beta, "beta") < 0:
-        raise ThermoseedError(
-            f"beta = {beta!r} must be >= 0 (use beta=None for exact ground states)"
-        )
-    return float(beta)
-
-
 def _check_fields(field_range: tuple[float, float], gap: float) -> tuple[float, float, float]:
     try:
-        lo, hi = (_real(v, "field_range entry") for v in field_range)
+        lo, hi = (real_number(v, "field_range entry") for v in field_range)
     except (TypeError, ValueError) as err:
         raise ThermoseedError(f"field_range = {field_range!r} must be a pair (low, high)") from err
-    gap = _real(gap, "gap")
+    gap = real_number(gap, "gap")
     if not 0 <= gap < 1:
         raise ThermoseedError(f"gap = {gap!r} must satisfy 0 <= gap < 1 (in units of J)")
     if not 0 <= lo < 1 - gap or hi <= 1 + gap:
@@ -211,7 +184,7 @@ def magnet_phase_data(
     j = _check_coupling(coupling)
     lo, hi, gap = _check_fields(field_range, gap)
     beta = None if beta is None else _check_beta(beta)
-    rng = np.random.default_rng(_check_seed(seed))
+    rng = np.random.default_rng(seed_value(seed))
     labels = rng.permutation(np.arange(n_samples) % 2).astype(np.int64)
     ordered = rng.uniform(lo, 1.0 - gap, size=n_samples)
     disordered = rng.uniform(1.0 + gap, hi, size=n_samples)
@@ -234,9 +207,9 @@ def train_test_split(
     ``round(test_fraction * count)`` permuted members go to the test set, the rest (in permuted
     order) to the training set.
     """
-    if not 0 < _real(test_fraction, "test_fraction") < 1:
+    if not 0 < real_number(test_fraction, "test_fraction") < 1:
         raise ThermoseedError(f"test_fraction = {test_fraction!r} must lie strictly in (0, 1)")
-    rng = np.random.default_rng(_check_seed(seed))
+    rng = np.random.default_rng(seed_value(seed))
     order = rng.permutation(len(data))
     test_mask = np.zeros(len(data), dtype=bool)
     for label in np.unique(data.labels):
@@ -252,7 +225,9 @@ def train_test_split(
     return data.subset(train_idx), data.subset(test_idx)
 
 
-def _check_seed(seed: int) -> int:
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise ThermoseedError(f"seed = {seed!r} must be a non-negative integer")
-    return int(seed)
+def _check_qubits(n_qubits: int) -> int:
+    return qubit_count(n_qubits, MAX_QUBITS)
+
+
+def _check_beta(beta: float) -> float:
+    return inverse_temperature(beta, " (use beta=None for exact ground states)")

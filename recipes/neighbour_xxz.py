@@ -23,6 +23,8 @@ from pretrain.errors import ThermoseedError
 from pretrain.files import atomic_save_npz
 from pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 
+from ._checks import inverse_temperature, qubit_count, real_number
+
 #: Largest chain handled (dense 2^n x 2^n diagonalisation).
 MAX_QUBITS = 12
 
@@ -65,29 +67,8 @@ class XXZThermalData:
         return atomic_save_npz(path, self.arrays())
 
 
-def _real(value, what: str) -> float:
-    """``float(value)`` when it is a finite real number, else a ThermoseedError naming it."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as err:
-        raise ThermoseedError(f"{what} = {value!r} must be a real number") from err
-    if not np.isfinite(out):
-        raise ThermoseedError(f"{what} = {value!r} must be finite")
-    return out
-
-
-def _check_qubits(n_qubits: int) -> int:
-    if isinstance(n_qubits, bool) or not isinstance(n_qubits, (int, np.integer)):
-        raise ThermoseedError(f"n_qubits must be an integer, got {n_qubits!r}")
-    if not 2 <= n_qubits <= MAX_QUBITS:
-        raise ThermoseedError(
-            f"n_qubits = {n_qubits} is out of range; use 2 <= n_qubits <= {MAX_QUBITS}"
-        )
-    return int(n_qubits)
-
-
 def _check_coupling(coupling: float) -> float:
-    j = _real(coupling, "coupling J")
+    j = real_number(coupling, "coupling J")
     if j <= 0:
         raise ThermoseedError(
             f"coupling J = {coupling!r} must be > 0; for J < 0 use |J| with delta -> -delta"
@@ -104,7 +85,7 @@ def xxz_coefficients(n_qubits: int, delta: float, J: float = 1.0) -> np.ndarray:
     """Coefficients ``[J] * (n-1) + [J] * (n-1) + [J * Delta] * (n-1)`` for ``xxz_terms(n)``."""
     bonds = _check_qubits(n_qubits) - 1
     j = _check_coupling(J)
-    d = _real(delta, "delta")
+    d = real_number(delta, "delta")
     return np.concatenate([np.full(2 * bonds, j), np.full(bonds, j * d)])
 
 
@@ -122,13 +103,6 @@ def xxz_phase(delta) -> np.ndarray:
     """Phase labels (int64): 0 if ``Delta <= -1``, 1 if ``-1 < Delta <= 1``, 2 if ``Delta > 1``."""
     d = np.asarray(delta, dtype=float)
     return (d > -1).astype(np.int64) + (d > 1).astype(np.int64)
-
-
-def _check_beta(beta: float) -> float:
-    b = _real(beta, "beta")
-    if b < 0:
-        raise ThermoseedError(f"beta = {beta!r} must be >= 0 (inverse temperature, units 1/J)")
-    return b
 
 
 def thermal_state(n_qubits: int, delta: float, beta: float, J: float = 1.0) -> np.ndarray:  # noqa: N803
@@ -154,3 +128,11 @@ def thermal_states(n_qubits: int, delta, beta, J: float = 1.0) -> XXZThermalData
         raise ThermoseedError(f"delta and beta must be scalars or 1-D arrays, got {deltas.shape}")
     density = np.array([thermal_state(n, d, b, j) for d, b in zip(deltas, betas, strict=True)])
     return XXZThermalData(n, j, deltas, betas, xxz_phase(deltas), density)
+
+
+def _check_qubits(n_qubits: int) -> int:
+    return qubit_count(n_qubits, MAX_QUBITS)
+
+
+def _check_beta(beta: float) -> float:
+    return inverse_temperature(beta, " (inverse temperature, units 1/J)")

@@ -24,6 +24,8 @@ import numpy as np
 from pretrain.errors import ThermoseedError
 from pretrain.files import atomic_save_npz
 
+from ._checks import integer_in, real_number
+
 #: Largest probe handled (dense 2^n x 2^n density matrices per sample).
 MAX_QUBITS = 10
 
@@ -77,28 +79,8 @@ class ProbeDriftData:
 # ---------------------------------------------------------------- checks
 
 
-def _real(value, what: str) -> float:
-    """``float(value)`` when it is a finite real number, else a ThermoseedError naming it."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError) as err:
-        raise ThermoseedError(f"{what} = {value!r} must be a real number") from err
-    if not np.isfinite(out):
-        raise ThermoseedError(f"{what} = {value!r} must be finite")
-    return out
-
-
-def _check_int(value: int, what: str, low: int, high: int | None = None) -> int:
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        raise ThermoseedError(f"{what} must be an integer, got {value!r}")
-    if value < low or (high is not None and value > high):
-        upper = "" if high is None else f" and <= {high}"
-        raise ThermoseedError(f"{what} = {value} is out of range; use >= {low}{upper}")
-    return int(value)
-
-
 def _check_probability(p: float, what: str) -> float:
-    value = _real(p, what)
+    value = real_number(p, what)
     if not 0 <= value <= 1:
         raise ThermoseedError(f"{what} = {p!r} is not a probability; use a value in [0, 1]")
     return value
@@ -141,10 +123,10 @@ def wrap_phase(phases) -> np.ndarray:
 
 def ghz_state(n_qubits: int, phase: float) -> np.ndarray:
     """``(|0..0> + e^{i phi} |1..1>) / sqrt2`` as a (2^n,) complex vector."""
-    n = _check_int(n_qubits, "n_qubits", 2, MAX_QUBITS)
+    n = integer_in(n_qubits, "n_qubits", 2, MAX_QUBITS)
     psi = np.zeros(2**n, dtype=complex)
     psi[0] = 1.0
-    psi[-1] = np.exp(1j * _real(phase, "phase"))
+    psi[-1] = np.exp(1j * real_number(phase, "phase"))
     return psi / np.sqrt(2.0)
 
 
@@ -171,7 +153,7 @@ def apply_channel(rho: np.ndarray, kraus: np.ndarray, wire: int) -> np.ndarray:
     k = np.asarray(kraus)
     if k.ndim != 3 or k.shape[1:] != (2, 2):
         raise ThermoseedError(f"kraus has shape {k.shape}; expected (K, 2, 2) one-qubit operators")
-    wire = _check_int(wire, "wire", 0, n - 1)
+    wire = integer_in(wire, "wire", 0, n - 1)
     left, right = 2**wire, 2 ** (n - wire - 1)
     t = r.reshape(left, 2, right, left, 2, right)
     out = np.einsum("kij,ajbcmd,klm->aibcld", k, t, k.conj())
@@ -201,12 +183,12 @@ def probe_states(
     ``dephasing`` and ``depolarising`` are one probability for all samples or one per phase.
     Phases are wrapped to ``[-pi, pi)``; ``label = 1`` when ``|phi| > tolerance``.
     """
-    n = _check_int(n_qubits, "n_qubits", 2, MAX_QUBITS)
+    n = integer_in(n_qubits, "n_qubits", 2, MAX_QUBITS)
     phi = wrap_phase(np.atleast_1d(np.asarray(phases, dtype=float)))
     if phi.ndim != 1 or phi.size == 0 or not np.all(np.isfinite(phi)):
         raise ThermoseedError(f"phases must be a non-empty 1-D array of finite numbers, got "
                               f"shape {np.shape(phases)}")
-    tol = _real(tolerance, "tolerance")
+    tol = real_number(tolerance, "tolerance")
     if not 0 < tol < np.pi:
         raise ThermoseedError(f"tolerance = {tolerance!r} must lie in (0, pi) radians")
     p = _per_sample(dephasing, phi.size, "dephasing")
@@ -224,12 +206,12 @@ def drift_walk(
 ) -> np.ndarray:
     """A drifting phase over time: ``phi_t = wrap(start + sum_{s<=t} step * xi_s)``,
     ``xi_s ~ N(0, 1)`` (seeded); shape (n_steps,)."""
-    steps = _check_int(n_steps, "n_steps", 1)
-    sigma = _real(step, "step")
+    steps = integer_in(n_steps, "n_steps", 1)
+    sigma = real_number(step, "step")
     if sigma < 0:
         raise ThermoseedError(f"step = {step!r} must be >= 0 (standard deviation per step)")
-    rng = np.random.default_rng(_check_int(seed, "seed", 0))
-    return wrap_phase(_real(start, "start") + np.cumsum(sigma * rng.standard_normal(steps)))
+    rng = np.random.default_rng(integer_in(seed, "seed", 0))
+    return wrap_phase(real_number(start, "start") + np.cumsum(sigma * rng.standard_normal(steps)))
 
 
 def probe_drift_data(
@@ -250,10 +232,10 @@ def probe_drift_data(
     for label 1, with a random sign. ``p ~ U[dephasing]``, ``q ~ U[depolarising]`` per sample
     (a single number fixes it).
     """
-    n = _check_int(n_qubits, "n_qubits", 2, MAX_QUBITS)
-    count = _check_int(n_samples, "n_samples", 1)
-    tol, top, gap = (_real(tolerance, "tolerance"), _real(max_phase, "max_phase"),
-                     _real(margin, "margin"))
+    n = integer_in(n_qubits, "n_qubits", 2, MAX_QUBITS)
+    count = integer_in(n_samples, "n_samples", 1)
+    tol, top, gap = (real_number(tolerance, "tolerance"), real_number(max_phase, "max_phase"),
+                     real_number(margin, "margin"))
     if gap < 0 or not 0 < tol - gap or not tol + gap < top <= np.pi:
         raise ThermoseedError(
             f"need margin >= 0 and 0 < tolerance - margin < tolerance + margin < max_phase <= pi;"
@@ -261,7 +243,7 @@ def probe_drift_data(
         )
     p_lo, p_hi = _probability_range(dephasing, "dephasing")
     q_lo, q_hi = _probability_range(depolarising, "depolarising")
-    rng = np.random.default_rng(_check_int(seed, "seed", 0))
+    rng = np.random.default_rng(integer_in(seed, "seed", 0))
     labels = rng.permutation(np.arange(count) % 2).astype(np.int64)
     inside = rng.uniform(0.0, tol - gap, size=count)
     beyond = rng.uniform(tol + gap, top, size=count)
