@@ -151,7 +151,8 @@ def _cmd_inspect(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from .pipeline import load_recipe, run_recipe
+    from .pipeline import run_recipe
+    from .recipe_config import load_recipe
 
     recipe = load_recipe(args.recipe, qubits=args.qubits, seed=args.seed, quick=args.quick)
     out = Path(args.out) if args.out else Path("thermoseed-runs") / recipe["name"]

@@ -35,18 +35,38 @@ def energy(ansatz: Ansatz, params, hamiltonian: np.ndarray):
     return anp.real(anp.dot(anp.conj(psi), anp.dot(hamiltonian, psi)))
 
 
+def pair_energy(ansatz: Ansatz, pair, hamiltonian: np.ndarray):
+    """``E(e, h) = <psi|H|psi>`` with ``psi = U(h) U(e)^dag |0>`` (the plateau probes'
+    two-block circuit; ``h = e`` is an identity block, ``e`` = identity gives ``U(h)|0>``)."""
+    rows_e = ansatz_columns(ansatz, pair[0])
+    start = anp.conj(rows_e[:, 0])  # U^dag|0> = conj of U's first row
+    psi = anp.dot(anp.transpose(ansatz_columns(ansatz, pair[1])), start)
+    return anp.real(anp.dot(anp.conj(psi), anp.dot(hamiltonian, psi)))
+
+
 def run_eigensolver(
     ansatz: Ansatz, hamiltonian: np.ndarray, params0, *, steps: int = 200,
     learning_rate: float = 0.05, target: float | None = None, progress: bool = False,
+    paired: bool = False,
 ) -> EnergyRun:
     """Adam on ``E(phi)`` for ``steps`` steps; ``target`` is an energy threshold
-    (the step count to reach ``E <= target`` is recorded, the run continues)."""
+    (the step count to reach ``E <= target`` is recorded, the run continues).
+    ``paired``: parameters have shape ``(2, *ansatz.shape)`` and the energy is
+    ``pair_energy``."""
     h = np.asarray(hamiltonian)
     d = 2**ansatz.n_wires
     if h.shape != (d, d) or not np.allclose(h, h.conj().T):
         raise ThermoseedError(f"the Hamiltonian must be a Hermitian {d}x{d} matrix, got {h.shape}")
-    params = np.asarray(ansatz.check(np.asarray(params0, dtype=float)), dtype=float).copy()
-    value_and_grad = autograd.value_and_grad(lambda p: energy(ansatz, p, h))
+    params = np.asarray(params0, dtype=float).copy()
+    if paired:
+        if params.shape != (2, *ansatz.shape):
+            raise ThermoseedError(
+                f"paired parameters must have shape {(2, *ansatz.shape)}, got {params.shape}")
+        ansatz.check(params[0])
+        value_and_grad = autograd.value_and_grad(lambda p: pair_energy(ansatz, p, h))
+    else:
+        ansatz.check(params)
+        value_and_grad = autograd.value_and_grad(lambda p: energy(ansatz, p, h))
     opt = adam(learning_rate)
     state = opt.init(params)
     energies: list[float] = []

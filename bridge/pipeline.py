@@ -1,0 +1,245 @@
+"""Run a recipe end to end into a run folder.
+
+Classification scenarios (magnet-phase, probe-drift): generate data -> fit a Gibbs model ->
+compile it into the downstream template -> warm-start parameters -> training curves from
+each initialisation strategy -> gradient probes over qubit counts -> report. Neighbour-xxz:
+thermal data at one anisotropy -> fit -> compile -> eigensolver at the neighbouring
+anisotropy from each strategy -> report.
+
+Run folder: ``data.npz``, ``model.npz``, ``compile.npz``, ``warm_start.npz``,
+``results.jsonl`` (sweep records; classification), ``energies.json`` (neighbour-xxz),
+PNG plots, ``report.md`` and ``run.json`` (versions, seeds, settings, timings). Rerunning
+the same recipe into the same folder resumes: finished sweep jobs are skipped.
+"""
+
+from __future__ import annotations
+
+import json
+import platform
+import time
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
+from pretrain.errors import ThermoseedError
+from pretrain.files import atomic_save_npz, atomic_write_bytes
+
+from .ansatz import make_ansatz
+from .compile import compile_latent
+from .plateau import LabelledData, PretrainSettings
+from .recipe_config import fingerprint
+from .report import write_report
+from .seed import warm_start
+from .sweep import make_grid, run_sweep
+
+RUN_FILE = "run.json"
+
+
+def _versions() -> dict[str, str]:
+    out = {"python": platform.python_version()}
+    for pkg in ("thermoseed", "numpy", "scipy", "pennylane", "autograd"):
+        try:
+            out[pkg] = metadata.version(pkg)
+        except metadata.PackageNotFoundError:
+            out[pkg] = "not installed"
+    return out
+
+
+def _write_json(path: Path, payload: dict) -> None:
+    atomic_write_bytes(path, json.dumps(payload, indent=2, sort_keys=True, default=str).encode())
+
+
+def _claim_folder(out: Path, recipe: dict) -> dict:
+    """Create or reopen a run folder; refuse one that holds a different recipe's run."""
+    out.mkdir(parents=True, exist_ok=True)
+    run_path = out / RUN_FILE
+    fp = fingerprint(recipe)
+    if run_path.exists():
+        try:
+            previous = json.loads(run_path.read_text())
+        except (json.JSONDecodeError, UnicodeDecodeError) as err:
+            raise ThermoseedError(
+                f"{run_path} is corrupt ({err}); delete it to start over") from err
+        if previous.get("fingerprint") != fp:
+            raise ThermoseedError(
+                f"run folder {str(out)!r} holds a run of different settings; pass another "
+                "--out or delete the folder"
+            )
+    run = {"fingerprint": fp, "recipe": recipe, "versions": _versions(), "status": "running",
+           "seeds": {"recipe": recipe["seed"]}, "timings": {}, "files": {}}
+    _write_json(run_path, run)
+    return run
+
+
+class _Stage:
+    """Times a stage and records it in run.json."""
+
+    def __init__(self, run: dict, out: Path, name: str):
+        self.run, self.out, self.name = run, out, name
+
+    def __enter__(self):
+        self.start = time.perf_counter()
+        return self
+
+    def __exit__(self, *exc):
+        self.run["timings"][self.name] = round(time.perf_counter() - self.start, 3)
+        _write_json(self.out / RUN_FILE, self.run)
+        return False
+
+
+# ------------------------------------------------------------------------------ data
+
+
+def classification_data(scenario: str, n: int, samples: int, test_fraction: float,
+                        seed: int) -> LabelledData:
+    """Seeded scenario data at ``n`` qubits, split into train / test (stratified)."""
+    if scenario == "magnet-phase":
+        from recipes.magnet_phase import magnet_phase_data
+
+        batch = magnet_phase_data(n, samples, seed=seed)
+        states = batch.states
+    else:
+        from recipes.probe_drift import probe_drift_data
+
+        batch = probe_drift_data(n, samples, seed=seed)
+        states = batch.density
+    labels = np.asarray(batch.labels)
+    rng = np.random.default_rng(seed)
+    test = []
+    for label in np.unique(labels):
+        members = rng.permutation(np.flatnonzero(labels == label))
+        test.extend(members[: max(1, int(round(test_fraction * len(members))))])
+    is_test = np.zeros(len(labels), bool)
+    is_test[test] = True
+    return LabelledData(states[~is_test], labels[~is_test], states[is_test], labels[is_test])
+
+
+def _training_data(data: LabelledData):
+    states = np.asarray(data.train_states)
+    return from_states(states) if states.ndim == 2 else from_density_matrices(states)
+
+
+# ------------------------------------------------------------------------------ stages
+
+
+def _pretrain_chain(recipe: dict, out: Path, run: dict, terms, td, progress: bool):
+    """Fit, compile and warm start at the recipe's size; writes the three files."""
+    n = terms.n_qubits
+    model_cfg, comp = recipe["model"], recipe["compile"]
+    with _Stage(run, out, "fit"):
+        model = VisibleGibbsModel(terms, l2=model_cfg["l2"], seed=recipe["seed"],
+                                  progress=progress).fit(td)
+        model.save(out / "model.npz")
+    unit = make_ansatz(comp["template"], n, comp["depth"])
+    with _Stage(run, out, "compile"):
+        result = compile_latent(model, unit, restarts=comp["restarts"],
+                                max_iter=comp["max_iter"], seed=recipe["seed"], data=td.rho,
+                                progress=progress)
+        result.save(out / "compile.npz")
+    params = np.asarray(warm_start(result, head=unit), dtype=float)
+    atomic_save_npz(out / "warm_start.npz", {"params": params,
+                                              "encoder_shape": np.array(unit.shape),
+                                              "head_shape": np.array(unit.shape)})
+    run["fit"] = {"relative_entropy": model.loss_, "iterations": model.n_iter_,
+                  "converged": bool(model.converged_), "terms": len(terms)}
+    run["compile"] = {**result.report._asdict(), "latent_states": int(len(result.latent.basis))}
+    run["files"].update({"model": "model.npz", "compile": "compile.npz",
+                         "warm_start": "warm_start.npz"})
+    return model, result
+
+
+def run_classification(recipe: dict, out: Path, run: dict, progress: bool, workers: int):
+    data_cfg, model_cfg, comp = recipe["data"], recipe["model"], recipe["compile"]
+    n, seed = data_cfg["qubits"], recipe["seed"]
+    plateau, train = recipe["plateau"], recipe["train"]
+    sizes = sorted(set(plateau["sizes"]) | {n})
+    with _Stage(run, out, "data"):
+        data = {m: classification_data(recipe["scenario"], m, data_cfg["samples"],
+                                       data_cfg["test_fraction"], seed + m) for m in sizes}
+        main = data[n]
+        key = "states" if np.ndim(main.train_states) == 2 else "density"
+        atomic_save_npz(out / "data.npz", {key: main.train_states, "labels": main.train_labels,
+                                           f"test_{key}": main.test_states,
+                                           "test_labels": main.test_labels})
+    run["files"]["data"] = "data.npz"
+    terms = graph_terms(n, model_cfg["graph"], fields=model_cfg["fields"],
+                        couplings=tuple(model_cfg["couplings"]))
+    _pretrain_chain(recipe, out, run, terms, _training_data(main), progress)
+    settings = PretrainSettings(model_cfg["graph"], model_cfg["fields"],
+                                tuple(model_cfg["couplings"]), model_cfg["l2"],
+                                comp["restarts"], comp["max_iter"])
+    seeds = range(seed, seed + train["seeds"])
+    jobs = make_grid([n], train["strategies"], seeds, task="training",
+                     depths=[comp["depth"]], template=comp["template"], steps=train["steps"],
+                     learning_rate=train["learning_rate"], settings=settings)
+    jobs += make_grid(plateau["sizes"], plateau["strategies"],
+                      range(seed, seed + plateau["seeds"]), costs=plateau["costs"],
+                      template=comp["template"], settings=settings)
+    with _Stage(run, out, "sweep"):
+        result = run_sweep(jobs, out / "results.jsonl", data=data,
+                           workers=workers or None, progress=progress)
+    run["files"]["results"] = "results.jsonl"
+    run["sweep"] = {"jobs": len(jobs), "ran": result.ran, "skipped": result.skipped}
+    with _Stage(run, out, "report"):
+        write_report(result.records, out, title="Plateau comparison in detail",
+                     target=train["target_accuracy"], seed=seed)
+        from .findings import classification_findings
+
+        _prepend(out / "report.md", classification_findings(recipe, run, result.records))
+    run["files"]["report"] = "report.md"
+
+
+def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
+    from recipes.neighbour_xxz import ground_energy, thermal_state, xxz_hamiltonian, xxz_terms
+
+    from .findings import eigensolver_findings, plot_energy_runs
+    from .neighbour import energy_runs
+
+    data_cfg, solver = recipe["data"], recipe["eigensolver"]
+    n = data_cfg["qubits"]
+    with _Stage(run, out, "data"):
+        rho = thermal_state(n, data_cfg["source_delta"], data_cfg["beta"])
+        atomic_save_npz(out / "data.npz", {"density": rho})
+    run["files"]["data"] = "data.npz"
+    td = from_density_matrices(rho)
+    _, result = _pretrain_chain(recipe, out, run, xxz_terms(n), td, progress)
+    target_h = xxz_hamiltonian(n, data_cfg["target_delta"])
+    e0 = ground_energy(n, data_cfg["target_delta"])
+    target = e0 + solver["tolerance"] * abs(e0)
+    with _Stage(run, out, "eigensolver"):
+        runs = energy_runs(result, target_h, target, solver["strategies"],
+                           range(recipe["seed"], recipe["seed"] + solver["seeds"]),
+                           steps=solver["steps"], learning_rate=solver["learning_rate"],
+                           progress=progress)
+        _write_json(out / "energies.json", {"ground_energy": e0, "target": target,
+                                            "runs": runs})
+    with _Stage(run, out, "report"):
+        plot_energy_runs(runs, e0, target, out / "energies.png")
+        text = eigensolver_findings(recipe, run, runs, e0, target)
+        atomic_write_bytes(out / "report.md", text.encode("utf-8"))
+    run["files"].update({"energies": "energies.json", "plot": "energies.png",
+                         "report": "report.md"})
+
+
+def _prepend(path: Path, text: str) -> None:
+    body = path.read_text(encoding="utf-8")
+    atomic_write_bytes(path, (text + "\n" + body).encode("utf-8"))
+
+
+def run_recipe(recipe: dict, out, *, progress: bool = True, workers: int = 0) -> dict[str, Any]:
+    """Run a validated recipe (``load_recipe``) into folder ``out``; returns run.json's data."""
+    out = Path(out)
+    run = _claim_folder(out, recipe)
+    start = time.perf_counter()
+    if recipe["scenario"] == "neighbour-xxz":
+        run_eigensolver_recipe(recipe, out, run, progress)
+    else:
+        run_classification(recipe, out, run, progress, workers)
+    run["timings"]["total"] = round(time.perf_counter() - start, 3)
+    run["status"] = "finished"
+    _write_json(out / RUN_FILE, run)
+    return {"folder": str(out), "status": run["status"], "timings": run["timings"],
+            "files": run["files"]}
