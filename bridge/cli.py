@@ -50,7 +50,7 @@ def _word_list(text: str) -> list[str]:
     return [v.strip() for v in text.split(",") if v.strip()]
 
 
-def _json(payload) -> str:
+def _json(payload, indent: int | None = None) -> str:
     """JSON with non-finite floats written as strings ("inf"), so any parser reads it."""
 
     def clean(value):
@@ -62,7 +62,7 @@ def _json(payload) -> str:
             return [clean(v) for v in value]
         return value
 
-    return json.dumps(clean(payload), default=str)
+    return json.dumps(clean(payload), default=str, indent=indent)
 
 
 def _add_common(parser: argparse.ArgumentParser) -> None:

@@ -1,0 +1,233 @@
+"""Command line and recipes end to end: outputs, reproducibility, user errors, README."""
+
+from __future__ import annotations
+
+import json
+import re
+import shlex
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from bridge.cli import main
+from bridge.recipe_config import load_recipe, validate_recipe
+from pretrain.errors import ThermoseedError
+
+ROOT = Path(__file__).resolve().parents[1]
+
+TINY = """
+name = "tiny"
+title = "Tiny magnet-phase run"
+scenario = "magnet-phase"
+seed = 3
+
+[data]
+qubits = 2
+samples = 16
+test_fraction = 0.25
+
+[model]
+graph = "line"
+fields = "XZ"
+couplings = ["ZZ"]
+l2 = 1e-3
+
+[compile]
+template = "soft"
+depth = 2
+restarts = 1
+max_iter = 40
+
+[train]
+strategies = ["pretrained", "uniform"]
+seeds = 1
+steps = 3
+
+[plateau]
+sizes = [2, 3]
+strategies = ["uniform", "pretrained"]
+seeds = 3
+costs = ["local"]
+"""
+
+
+def _records(path: Path) -> list[dict]:
+    out = []
+    for line in path.read_text().splitlines():
+        rec = json.loads(line)
+        rec.pop("seconds")  # wall time is the only field allowed to differ
+        out.append(rec)
+    return sorted(out, key=lambda r: r["key"])
+
+
+@pytest.fixture(scope="module")
+def tiny_runs(tmp_path_factory):
+    base = tmp_path_factory.mktemp("runs")
+    recipe = base / "tiny.toml"
+    recipe.write_text(TINY)
+    codes = [main(["run", str(recipe), "--out", str(base / name), "--quiet", "--workers", "1"])
+             for name in ("a", "b")]
+    return base, codes
+
+
+def test_recipe_run_writes_every_output(tiny_runs):
+    base, codes = tiny_runs
+    assert codes == [0, 0]
+    run = base / "a"
+    for name in ("data.npz", "model.npz", "compile.npz", "warm_start.npz", "results.jsonl",
+                 "report.md", "run.json", "decay.png", "curves.png"):
+        assert (run / name).stat().st_size > 0, name
+    info = json.loads((run / "run.json").read_text())
+    assert info["status"] == "finished"
+    assert info["seeds"]["recipe"] == 3
+    assert {"python", "numpy", "scipy", "pennylane", "autograd"} <= set(info["versions"])
+    assert set(info["timings"]) >= {"fit", "compile", "sweep", "report", "total"}
+    from matplotlib.image import imread
+
+    assert imread(run / "decay.png").size > 0
+    from bridge.compile_io import load_compile
+    from pretrain import load_model
+
+    assert load_model(run / "model.npz").coef_.shape == (5,)  # X, Z fields on 2 wires + ZZ
+    assert load_compile(run / "compile.npz").params.shape == (2, 2, 3)
+    with np.load(run / "warm_start.npz", allow_pickle=False) as f:
+        assert f["params"].size == 2 * 12
+    report = (run / "report.md").read_text()
+    assert "In plain words" in report and "no hardware advantage is claimed" in report
+
+
+def test_recipe_rerun_same_seed_reproduces_numbers(tiny_runs):
+    base, _ = tiny_runs
+    assert _records(base / "a" / "results.jsonl") == _records(base / "b" / "results.jsonl")
+    a = json.loads((base / "a" / "run.json").read_text())
+    b = json.loads((base / "b" / "run.json").read_text())
+    assert a["fit"] == b["fit"] and a["compile"] == b["compile"]
+    with np.load(base / "a" / "warm_start.npz") as fa, np.load(base / "b" / "warm_start.npz") as fb:
+        np.testing.assert_array_equal(fa["params"], fb["params"])
+
+
+def test_rerun_into_same_folder_resumes_without_rerunning_jobs(tiny_runs):
+    base, _ = tiny_runs
+    before = (base / "a" / "results.jsonl").read_text()
+    assert main(["run", str(base / "tiny.toml"), "--out", str(base / "a"), "--quiet",
+                 "--workers", "1"]) == 0
+    assert (base / "a" / "results.jsonl").read_text() == before
+
+
+def test_folder_of_other_recipe_is_refused(tiny_runs, capsys):
+    base, _ = tiny_runs
+    code = main(["run", str(base / "tiny.toml"), "--out", str(base / "a"), "--seed", "9",
+                 "--quiet"])
+    assert code == 1
+    assert "different settings" in capsys.readouterr().err
+
+
+def test_fit_compile_warm_start_inspect_commands(tmp_path, capsys):
+    from recipes.magnet_phase import magnet_phase_data
+
+    magnet_phase_data(2, 12, seed=0).save_npz(tmp_path / "d.npz")
+    assert main(["fit", str(tmp_path / "d.npz"), "--graph", "line", "--fields", "XZ",
+                 "--couplings", "ZZ", "--l2", "1e-3", "--out", str(tmp_path / "m.npz"),
+                 "--quiet"]) == 0
+    fit = json.loads(capsys.readouterr().out)
+    assert fit["converged"] is True and fit["terms"] == 5
+    assert main(["compile", str(tmp_path / "m.npz"), "--layers", "2", "--restarts", "1",
+                 "--max-iter", "30", "--out", str(tmp_path / "c.npz"), "--quiet"]) == 0
+    comp = json.loads(capsys.readouterr().out)
+    assert 0 <= comp["model_fidelity"] <= 1
+    assert main(["warm-start", str(tmp_path / "c.npz"), "--head", "soft",
+                 "--out", str(tmp_path / "p.npz"), "--quiet"]) == 0
+    assert json.loads(capsys.readouterr().out)["shape"] == [2 * 2 * 3 + 1 * 2 * 3]
+    assert main(["inspect", str(tmp_path / "m.npz")]) == 0
+    shown = json.loads(capsys.readouterr().out)
+    assert shown["header"]["kind"] == "gibbs-model" and "coef" in shown["arrays"]
+
+
+@pytest.mark.parametrize("argv, needle", [
+    (["fit", "missing.npz", "--out", "m.npz"], "does not exist"),
+    (["inspect", "missing.npz"], "does not exist"),
+    (["run", "no-such-recipe"], "neither a built-in"),
+])
+def test_user_errors_are_one_line_exit_1(argv, needle, capsys, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    assert main(argv) == 1
+    err = capsys.readouterr().err.strip()
+    assert needle in err and err.startswith("thermoseed: error:")
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+
+
+def test_bad_recipe_schema_is_one_line_exit_1(tmp_path, capsys):
+    bad = tmp_path / "bad.toml"
+    bad.write_text(TINY.replace("steps = 3", "stepz = 3"))
+    assert main(["run", str(bad), "--out", str(tmp_path / "o"), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert "unknown keys ['stepz']" in err and len(err.strip().splitlines()) == 1
+    broken = tmp_path / "broken.toml"
+    broken.write_text("name = [unclosed")
+    assert main(["run", str(broken), "--quiet"]) == 1
+    assert "not valid TOML" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("argv", [
+    ["fit", "d.npz", "--out", "m.npz", "--l2", "-1"],
+    ["fit", "d.npz", "--out", "m.npz", "--no-such-option"],
+    ["compile", "m.npz", "--out", "c.npz", "--layers", "zero"],
+])
+def test_bad_options_fail_at_parse_time_with_exit_2(argv, capsys):
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    assert info.value.code == 2
+    assert "Traceback" not in capsys.readouterr().err
+
+
+def test_recipe_type_errors_name_the_key():
+    raw = {"scenario": "magnet-phase", "data": {"qubits": "four"}}
+    with pytest.raises(ThermoseedError, match="qubits"):
+        validate_recipe(raw)
+    with pytest.raises(ThermoseedError, match="scenario"):
+        validate_recipe({"scenario": "weather"})
+
+
+def test_builtin_recipes_load():
+    for name in ("magnet-phase", "probe-drift", "neighbour-xxz"):
+        recipe = load_recipe(name, quick=True)
+        assert recipe["scenario"] == name and recipe["compile"]["depth"] >= 1
+
+
+def test_help_mentions_an_example_for_every_command(capsys):
+    for command in ("fit", "compile", "warm-start", "run", "inspect"):
+        with pytest.raises(SystemExit) as info:
+            main([command, "--help"])
+        assert info.value.code == 0
+        assert "example" in capsys.readouterr().out
+
+
+def _quickstart_commands() -> list[str]:
+    text = (ROOT / "README.md").read_text()
+    block = re.search(r"## Quick start\s+```bash\n(.*?)```", text, re.S)
+    assert block, "README needs a ```bash quick-start block under '## Quick start'"
+    return [line for line in block.group(1).splitlines() if line.strip()]
+
+
+def test_readme_quickstart_is_two_install_and_run_commands():
+    commands = _quickstart_commands()
+    assert len(commands) == 2
+    assert all(c.startswith("pip install ") for c in commands)
+    assert "thermoseed run" in commands[0] and "pytest" in commands[1]
+
+
+@pytest.mark.slow
+def test_readme_quickstart_main_job_runs(tmp_path):
+    """Runs the README's main-job command verbatim (after its install step, which the test
+    environment has already done) from an empty folder."""
+    job = _quickstart_commands()[0].split("&&", 1)[1].strip()
+    argv = shlex.split(job)
+    assert argv[0] == "thermoseed"
+    proc = subprocess.run([sys.executable, "-m", "bridge", *argv[1:]], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=1800)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    report = tmp_path / "thermoseed-runs" / "magnet-phase" / "report.md"
+    assert "In plain words" in report.read_text()
