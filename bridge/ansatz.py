@@ -195,7 +195,8 @@ def columns(gates: Callable[[object], None], params, n_wires: int, basis=None):
         return qml.state()
 
     out = run(params)
-    return out if len(basis) > 1 else out[None, :]
+    # StatePrep of a (1, d) block is broadcast with batch size 1 and already gives (1, d)
+    return out if qml.math.ndim(out) == 2 else out[None, :]
 
 
 def ansatz_columns(ansatz: Ansatz, params, basis=None):

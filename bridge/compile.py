@@ -332,4 +332,7 @@ def _data_rho(data):
         return None
     from pretrain.data import as_training_data
 
-    return as_training_data(data, kind="density" if np.ndim(data) == 2 else None).rho
+    # a square 2-D array is one density matrix (as in VisibleGibbsModel.fit); a non-square
+    # 2-D array is a batch of state vectors
+    square = np.ndim(data) == 2 and np.shape(data)[0] == np.shape(data)[1]
+    return as_training_data(data, kind="density" if square else None).rho
