@@ -1,0 +1,350 @@
+"""Initialisation strategies and gradient probes for the barren-plateau comparison.
+
+Probe circuit (every strategy, every cost): one ansatz U with ``depth`` layers on n wires,
+used twice in the downstream orientation,
+
+    ``V(e, h) = U(h) U(e)^dag``,  parameters ``phi = [e, h]`` of shape ``(2, *U.shape)``,
+
+i.e. data -> encoder^dag -> head (``bridge.discriminative``) with the head the same template
+as the encoder. ``V`` has ``2 * depth`` layers. This is one identity block in the sense of
+Grant et al. (Quantum 3, 214 (2019), arXiv:1903.05076): ``h = e`` gives ``V = I`` for any e.
+
+Costs at initialisation:
+    ``local``       ``C = <psi| V^dag Z_0 V |psi>``
+    ``global``      ``C = 1 - |<0...0| V |psi>|^2``
+    ``classifier``  ``C = DownstreamCircuit.loss`` (mean cross-entropy) on the training batch
+For local/global, ``|psi>`` is a seeded random product state (each qubit uniform on the
+Bloch sphere), not ``|0...0>``: at ``V = I`` a basis-state input is a stationary point.
+
+Gradients: ``lightning.qubit`` adjoint differentiation run on the device's own tape (a
+marker pass maps every decomposed gate angle back to ``+-phi_k``), else ``default.qubit``
+backprop (autograd); the result names the method. Parameters that never enter the circuit
+(e.g. the third angle of the last wire in ``"soft"``, which has no CRX) have identically zero
+gradient; ``ProbeResult.active`` marks the others and the statistics use only those.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Callable
+from typing import NamedTuple
+
+import autograd
+import numpy as np
+from pennylane import numpy as pnp
+
+from pretrain import VisibleGibbsModel, as_training_data, graph_terms
+from pretrain.errors import ThermoseedError
+
+from .ansatz import Ansatz, make_ansatz
+from .compile import compile_latent
+from .discriminative import DownstreamCircuit, train_classifier
+from .plateau_grad import CircuitGradient, active_mask
+from .seed import warm_start
+
+COSTS = ("local", "global", "classifier")
+STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretrained_perturbed")
+#: Default standard deviation of the small-angle strategy (radians).
+SMALL_ANGLE_SCALE = 0.1
+#: Default standard deviation of the perturbation added by ``pretrained_perturbed`` (radians).
+PERTURBATION_SCALE = 0.05
+
+Init = Callable[[tuple, np.random.Generator], np.ndarray]
+
+
+class Strategy(NamedTuple):
+    """A named initialisation: ``init(shape, rng) -> ndarray`` (deterministic given rng)."""
+
+    name: str
+    init: Init
+    options: dict
+
+    def __call__(self, shape, rng: np.random.Generator) -> np.ndarray:
+        return self.init(tuple(shape), rng)
+
+
+def uniform() -> Strategy:
+    """Every angle i.i.d. uniform on ``[0, 2 pi)``."""
+    return Strategy("uniform", lambda shape, rng: rng.uniform(0.0, 2 * np.pi, size=shape), {})
+
+
+def small_angle(scale: float = SMALL_ANGLE_SCALE) -> Strategy:
+    """Every angle i.i.d. ``N(0, scale^2)`` (Zhang et al., arXiv:2203.09376, who take
+    ``scale^2 ~ 1/depth``)."""
+    s = _positive(scale, "scale")
+    return Strategy("small_angle", lambda shape, rng: s * rng.standard_normal(shape),
+                    {"scale": s})
+
+
+def identity_blocks() -> Strategy:
+    """Grant et al. (arXiv:1903.05076): ``e`` uniform on ``[0, 2 pi)`` and ``h = e``, so
+    ``V = U(h) U(e)^dag = I`` at initialisation. Needs the pair shape ``(2, *U.shape)``."""
+
+    def init(shape, rng):
+        if len(shape) < 2 or shape[0] != 2:
+            raise ThermoseedError(
+                f"identity_blocks needs a parameter pair of shape (2, ...), got {shape}; use "
+                "the probe circuit V = U(h) U(e)^dag (bridge.plateau.probe_circuit)"
+            )
+        e = rng.uniform(0.0, 2 * np.pi, size=shape[1:])
+        return np.stack([e, e])
+
+    return Strategy("identity_blocks", init, {})
+
+
+class LabelledData(NamedTuple):
+    """Classifier data: (B, 2^n) state vectors or (B, 2^n, 2^n) density matrices, labels."""
+
+    train_states: np.ndarray
+    train_labels: np.ndarray
+    test_states: np.ndarray
+    test_labels: np.ndarray
+
+    @property
+    def n_qubits(self) -> int:
+        return int(np.log2(np.shape(self.train_states)[1]))
+
+    def fingerprint(self) -> str:
+        """sha256 of the four arrays (identifies the data in sweep records)."""
+        digest = hashlib.sha256()
+        for arr in self:
+            a = np.ascontiguousarray(arr)
+            digest.update(f"{a.dtype}{a.shape}".encode())
+            digest.update(a.tobytes())
+        return digest.hexdigest()[:16]
+
+
+class PretrainSettings(NamedTuple):
+    """Gibbs model and compile options of the pretrained strategies (all JSON-able)."""
+
+    graph: str = "line"
+    fields: str = "XZ"
+    couplings: tuple = ("ZZ",)
+    l2: float = 1e-3
+    restarts: int = 1
+    compile_iter: int = 300
+
+
+def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
+               settings: PretrainSettings | None = None,
+               perturbation: float = 0.0) -> Strategy:
+    """Warm start from an independent pre-training run per draw.
+
+    ``init((2, *U.shape), rng)``: bootstrap-resample the training states (B draws with
+    replacement, from rng), fit ``VisibleGibbsModel`` on them, ``compile_latent`` into the
+    encoder (compile seed from rng), ``warm_start`` (head = zeros = identity), then add
+    ``N(0, perturbation^2)`` to every angle when ``perturbation > 0``.
+    """
+    settings = PretrainSettings() if settings is None else settings
+    n = encoder.n_wires
+    terms = graph_terms(n, settings.graph, fields=settings.fields,
+                        couplings=tuple(settings.couplings))
+    states = np.asarray(data.train_states)
+    pert = float(perturbation)
+    if not np.isfinite(pert) or pert < 0:
+        raise ThermoseedError(f"perturbation must be a finite number >= 0, got {perturbation!r}")
+
+    def init(shape, rng):
+        if tuple(shape) != (2, *encoder.shape):
+            raise ThermoseedError(
+                f"pretrained init is for the pair shape {(2, *encoder.shape)}, got {shape}"
+            )
+        boot = rng.integers(0, len(states), size=len(states))
+        kind = "states" if states.ndim == 2 else "density"
+        td = as_training_data(states[boot], kind=kind)
+        model = VisibleGibbsModel(terms, l2=settings.l2).fit(td)
+        result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
+                                restarts=int(settings.restarts),
+                                max_iter=int(settings.compile_iter))
+        flat = np.asarray(warm_start(result, head=head), dtype=float)
+        out = flat.reshape(shape)
+        if pert > 0:
+            out = out + pert * rng.standard_normal(shape)
+        return out
+
+    name = "pretrained_perturbed" if pert > 0 else "pretrained"
+    return Strategy(name, init, {"perturbation": pert, **settings._asdict()})
+
+
+def make_strategy(name: str, *, scale: float | None = None, data: LabelledData | None = None,
+                  encoder: Ansatz | None = None, head: Ansatz | None = None,
+                  settings: PretrainSettings | None = None) -> Strategy:
+    """A strategy by name (``STRATEGIES``); ``scale`` is the small-angle or perturbation
+    standard deviation; the pretrained ones need ``data``, ``encoder`` and ``head``."""
+    if name == "uniform":
+        return uniform()
+    if name == "small_angle":
+        return small_angle(SMALL_ANGLE_SCALE if scale is None else scale)
+    if name == "identity_blocks":
+        return identity_blocks()
+    if name in ("pretrained", "pretrained_perturbed"):
+        if data is None or encoder is None or head is None:
+            raise ThermoseedError(f"strategy {name!r} needs labelled data (data=LabelledData)")
+        pert = 0.0 if name == "pretrained" else (PERTURBATION_SCALE if scale is None else scale)
+        if name == "pretrained_perturbed":
+            _positive(pert, "scale")
+        return pretrained(data, encoder, head, settings, pert)
+    raise ThermoseedError(f"unknown strategy {name!r}; choose one of {STRATEGIES}")
+
+
+def _positive(value, what: str) -> float:
+    v = float(value)
+    if not np.isfinite(v) or v <= 0:
+        raise ThermoseedError(f"{what} must be a finite number > 0, got {value!r}")
+    return v
+
+
+# ---------------------------------------------------------------------------- circuits
+
+
+def probe_circuit(template: str | Ansatz, n_qubits: int, depth: int) -> Ansatz:
+    """The ansatz U of ``V = U(h) U(e)^dag``: a built-in template name or the user's Ansatz."""
+    if isinstance(template, Ansatz):
+        if template.n_wires != n_qubits:
+            raise ThermoseedError(f"ansatz acts on {template.n_wires} wires, not n = {n_qubits}")
+        return template.on(range(n_qubits))
+    return make_ansatz(template, n_qubits, depth)
+
+
+def product_state(n_qubits: int, rng: np.random.Generator) -> np.ndarray:
+    """``(x)_i (cos(t_i/2)|0> + e^{i f_i} sin(t_i/2)|1>)``, ``cos t_i ~ U[-1,1]``,
+    ``f_i ~ U[0, 2 pi)``: each qubit uniform on the Bloch sphere; wire 0 leftmost."""
+    t = np.arccos(1.0 - 2.0 * rng.uniform(size=n_qubits))
+    f = rng.uniform(0.0, 2 * np.pi, size=n_qubits)
+    psi = np.ones(1, dtype=complex)
+    for a, b in zip(t, f, strict=True):
+        psi = np.kron(psi, np.array([np.cos(a / 2), np.exp(1j * b) * np.sin(a / 2)]))
+    return psi
+
+
+# ---------------------------------------------------------------------------- probes
+
+
+class ProbeResult(NamedTuple):
+    """Gradient of one cost at initialisation (one seed). ``grad`` and ``active`` are flat
+    over ``phi = [e, h]`` (encoder first, C order)."""
+
+    strategy: str
+    cost: str
+    n_qubits: int
+    depth: int
+    seed: int
+    template: str
+    value: float
+    grad: np.ndarray
+    active: np.ndarray
+    method: str
+
+
+def _streams(seed: int) -> tuple[np.random.Generator, ...]:
+    """Independent generators for the initial angles, the input state and the minibatch
+    order of one seed."""
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise ThermoseedError(f"seed must be a non-negative integer, got {seed!r}")
+    return tuple(np.random.default_rng(s) for s in np.random.SeedSequence(int(seed)).spawn(3))
+
+
+def _check_size(n_qubits: int, depth: int) -> tuple[int, int]:
+    for value, what, low in ((n_qubits, "n_qubits", 2), (depth, "depth", 1)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+            raise ThermoseedError(f"{what} must be an integer >= {low}, got {value!r}")
+    return int(n_qubits), int(depth)
+
+
+def _resolve(strategy, unit: Ansatz, data, scale, settings) -> Strategy:
+    if isinstance(strategy, Strategy):
+        return strategy
+    return make_strategy(str(strategy), scale=scale, data=data, encoder=unit, head=unit,
+                         settings=settings)
+
+
+def _classifier_value_and_grad(circuit, pair: np.ndarray, data: LabelledData):
+    flat = pnp.array(circuit.join(pnp.array(pair[0]), pnp.array(pair[1])), requires_grad=True)
+    value, grad = autograd.value_and_grad(
+        lambda p: circuit.loss(p, data.train_states, data.train_labels))(flat)
+    enc, head = circuit.split(pnp.array(grad))
+    return float(value), np.stack([np.asarray(enc, dtype=float), np.asarray(head, dtype=float)])
+
+
+def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str = "local",
+                seeds=(0,), *, template: str | Ansatz = "soft", scale: float | None = None,
+                data: LabelledData | None = None, settings: PretrainSettings | None = None,
+                readout: tuple = (0,), method: str = "auto") -> list[ProbeResult]:
+    """Gradient ``dC/dphi`` of ``cost`` at the initialisation ``strategy`` draws, per seed.
+
+    ``V = U(h) U(e)^dag`` with U = ``template`` (``depth`` layers on ``n_qubits`` wires); see
+    the module docstring for the costs. ``data`` is needed by the classifier cost and the
+    pretrained strategies; ``scale`` sets the small-angle / perturbation deviation. Seed r
+    gives the same numbers whichever other seeds are probed in the same call (the circuit
+    is prepared once and reused).
+    """
+    n, depth = _check_size(n_qubits, depth)
+    if cost not in COSTS:
+        raise ThermoseedError(f"unknown cost {cost!r}; choose one of {COSTS}")
+    if cost == "classifier" and data is None:
+        raise ThermoseedError("cost 'classifier' needs data=LabelledData(...)")
+    unit = probe_circuit(template, n, depth)
+    strat = _resolve(strategy, unit, data, scale, settings)
+    if cost == "classifier":
+        circuit = DownstreamCircuit(unit, unit, tuple(readout))
+        active, used = np.ravel(active_mask(unit, (2, *unit.shape))), "backprop/autograd"
+    else:
+        engine = CircuitGradient(unit, cost, method)
+        active, used = np.ravel(engine.active), engine.method
+    out = []
+    for seed in seeds:
+        init_rng, input_rng, _ = _streams(seed)
+        pair = np.asarray(strat((2, *unit.shape), init_rng), dtype=float)
+        if cost == "classifier":
+            value, grad = _classifier_value_and_grad(circuit, pair, data)
+        else:
+            value, grad = engine(pair, product_state(n, input_rng))
+        out.append(ProbeResult(strat.name, cost, n, depth, int(seed), unit.name, value,
+                               np.ravel(grad), active, used))
+    return out
+
+
+def probe(strategy: str | Strategy, n_qubits: int, depth: int, cost: str = "local",
+          seed: int = 0, **options) -> ProbeResult:
+    """``probe_seeds`` for one seed (same keyword options)."""
+    return probe_seeds(strategy, n_qubits, depth, cost, (seed,), **options)[0]
+
+
+# ---------------------------------------------------------------------------- training
+
+
+class TrainCurve(NamedTuple):
+    """Training loss and held-out accuracy after ``t = 0..steps`` Adam steps (one seed)."""
+
+    strategy: str
+    n_qubits: int
+    depth: int
+    seed: int
+    template: str
+    loss: np.ndarray
+    accuracy: np.ndarray
+
+
+def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
+                data: LabelledData, *, steps: int = 50, learning_rate: float = 0.05,
+                batch_size: int | None = None, template: str | Ansatz = "soft",
+                scale: float | None = None, settings: PretrainSettings | None = None,
+                readout: tuple = (0,)) -> TrainCurve:
+    """Train the downstream circuit from ``strategy``'s initialisation for ``seed`` with
+    ``bridge.discriminative.train_classifier`` (Adam; full batch unless ``batch_size``),
+    recording the training loss and the held-out accuracy at every step."""
+    n, depth = _check_size(n_qubits, depth)
+    if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1:
+        raise ThermoseedError(f"steps must be a positive integer, got {steps!r}")
+    unit = probe_circuit(template, n, depth)
+    init_rng, _, batch_rng = _streams(seed)
+    strat = _resolve(strategy, unit, data, scale, settings)
+    pair = np.asarray(strat((2, *unit.shape), init_rng), dtype=float)
+    circuit = DownstreamCircuit(unit, unit, tuple(readout))
+    run = train_classifier(
+        circuit, np.asarray(circuit.join(pair[0], pair[1]), dtype=float), data.train_states,
+        data.train_labels, data.test_states, data.test_labels, steps=int(steps),
+        batch_size=len(data.train_states) if batch_size is None else int(batch_size),
+        learning_rate=learning_rate, seed=int(batch_rng.integers(2**31)))
+    return TrainCurve(strat.name, n, depth, int(seed), unit.name, np.array(run.loss),
+                      np.array(run.test_accuracy))

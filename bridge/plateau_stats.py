@@ -1,0 +1,217 @@
+"""Statistics of plateau probes: gradient variances, decay-rate fits, training-curve summaries.
+
+For one group (strategy, cost, template) and one qubit count n, with gradients ``g_rk`` over
+seeds r = 1..R and active parameters k = 1..K:
+
+    ``Var_k = sum_r (g_rk - mean_r g_rk)^2 / (R - 1)``     (unbiased, over seeds)
+    ``mean_var = mean_k Var_k``, ``max_var = max_k Var_k``, ``mean_sq_norm = mean_r sum_k g_rk^2``
+
+Decay rate: least-squares slope ``b`` of ``log2 S(n) = a + b n`` for a statistic S; ``b`` is in
+log2 units per qubit (``b = -1`` halves S per added qubit). Interval: seeded percentile
+bootstrap, resampling the seeds with replacement independently at every n.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from collections.abc import Iterable, Mapping, Sequence
+from typing import NamedTuple
+
+import numpy as np
+
+from pretrain.errors import ThermoseedError
+
+from .plateau import ProbeResult, TrainCurve
+
+STATISTICS = ("mean_var", "max_var", "mean_sq_norm")
+#: Rows of seeds bootstrapped per vectorised chunk (bounds memory at chunk * R * K floats).
+_BOOT_CHUNK = 64
+
+
+class GradientStats(NamedTuple):
+    """Variance statistics of one (strategy, cost, template, n, depth) group."""
+
+    strategy: str
+    cost: str
+    template: str
+    n_qubits: int
+    depth: int
+    n_seeds: int
+    n_active: int
+    mean_var: float
+    max_var: float
+    mean_sq_norm: float
+
+
+def gradient_matrix(results: Sequence[ProbeResult]) -> np.ndarray:
+    """(R, K) gradients of the active parameters (all results must share the circuit)."""
+    if not results:
+        raise ThermoseedError("no probe results given")
+    active = np.asarray(results[0].active, dtype=bool)
+    for r in results:
+        if np.shape(r.grad) != active.shape or not np.array_equal(r.active, active):
+            raise ThermoseedError(
+                "probe results mix circuits (different parameter layouts); group them by "
+                "strategy, cost, template, n and depth first"
+            )
+    return np.array([np.asarray(r.grad, dtype=float)[active] for r in results])
+
+
+def _statistic(g: np.ndarray, statistic: str) -> np.ndarray:
+    """S over the seed axis -2 of g (..., R, K) -> (...)."""
+    if statistic == "mean_sq_norm":
+        return np.mean(np.sum(g**2, axis=-1), axis=-1)
+    var = np.var(g, axis=-2, ddof=1)
+    return var.mean(axis=-1) if statistic == "mean_var" else var.max(axis=-1)
+
+
+def gradient_stats(results: Sequence[ProbeResult]) -> GradientStats:
+    """``GradientStats`` of one group (at least two seeds)."""
+    g = gradient_matrix(results)
+    if g.shape[0] < 2:
+        raise ThermoseedError(f"need at least 2 seeds for a variance, got {g.shape[0]}")
+    first = results[0]
+    return GradientStats(first.strategy, first.cost, first.template, first.n_qubits,
+                         first.depth, g.shape[0], g.shape[1],
+                         float(_statistic(g, "mean_var")), float(_statistic(g, "max_var")),
+                         float(_statistic(g, "mean_sq_norm")))
+
+
+class DecayFit(NamedTuple):
+    """Fit ``log2 S(n) = intercept + slope * n`` with a bootstrap interval for the slope."""
+
+    statistic: str
+    n_values: tuple
+    log2_values: tuple
+    slope: float
+    intercept: float
+    low: float
+    high: float
+    level: float
+    boot_slopes: np.ndarray
+
+    def excludes_zero(self) -> bool:
+        return self.high < 0 or self.low > 0
+
+
+def _slopes(ns: np.ndarray, log_s: np.ndarray) -> np.ndarray:
+    """Least-squares slopes of rows of ``log_s`` (B, N) against ``ns`` (N,)."""
+    x = ns - ns.mean()
+    return (log_s - log_s.mean(axis=-1, keepdims=True)) @ x / (x @ x)
+
+
+def fit_decay(grads_by_n: Mapping[int, np.ndarray], *, statistic: str = "mean_var",
+              n_boot: int = 1000, level: float = 0.95, seed: int = 0) -> DecayFit:
+    """Decay rate of ``log2 S`` against n from (R_n, K_n) gradient matrices per n."""
+    if statistic not in STATISTICS:
+        raise ThermoseedError(f"unknown statistic {statistic!r}; choose one of {STATISTICS}")
+    if len(grads_by_n) < 2:
+        raise ThermoseedError(f"need at least two qubit counts for a slope, got {len(grads_by_n)}")
+    if not 0 < level < 1 or int(n_boot) < 10:
+        raise ThermoseedError(f"need 0 < level < 1 and n_boot >= 10, got {level}, {n_boot}")
+    ns = np.array(sorted(grads_by_n), dtype=float)
+    mats = [np.asarray(grads_by_n[int(n)], dtype=float) for n in ns]
+    for n, g in zip(ns, mats, strict=True):
+        if g.ndim != 2 or g.shape[0] < 2:
+            raise ThermoseedError(f"n = {int(n)}: need an (R >= 2, K) gradient matrix, "
+                                  f"got shape {g.shape}")
+    point = np.log2([_statistic(g, statistic) for g in mats])
+    rng = np.random.default_rng(seed)
+    boot = np.empty((int(n_boot), len(ns)))
+    for j, g in enumerate(mats):
+        for start in range(0, int(n_boot), _BOOT_CHUNK):
+            rows = rng.integers(0, g.shape[0], size=(min(_BOOT_CHUNK, n_boot - start),
+                                                     g.shape[0]))
+            boot[start:start + len(rows), j] = _statistic(g[rows], statistic)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slopes = _slopes(ns, np.log2(boot))
+    # A resample that repeats one seed R times has zero variance (log2 = -inf): dropped.
+    slopes = slopes[np.isfinite(slopes)]
+    slope = float(_slopes(ns, point[None, :])[0])
+    intercept = float(point.mean() - slope * ns.mean())
+    if slopes.size < 0.9 * int(n_boot):
+        raise ThermoseedError(
+            f"only {slopes.size} of {n_boot} bootstrap resamples have a non-zero {statistic} "
+            "at every n; probe more seeds"
+        )
+    low, high = np.quantile(slopes, [(1 - level) / 2, (1 + level) / 2])
+    return DecayFit(statistic, tuple(int(n) for n in ns), tuple(float(v) for v in point),
+                    slope, intercept, float(low), float(high), float(level), slopes)
+
+
+class GroupKey(NamedTuple):
+    strategy: str
+    cost: str
+    template: str
+
+
+def group_probes(results: Iterable[ProbeResult]) -> dict[GroupKey, dict[int, list]]:
+    """Results by (strategy, cost, template), then by n (each n must have one depth)."""
+    out: dict[GroupKey, dict[int, list]] = defaultdict(lambda: defaultdict(list))
+    for r in results:
+        out[GroupKey(r.strategy, r.cost, r.template)][r.n_qubits].append(r)
+    for key, by_n in out.items():
+        for n, rs in by_n.items():
+            depths = {r.depth for r in rs}
+            if len(depths) > 1:
+                raise ThermoseedError(f"{key} at n = {n} mixes depths {sorted(depths)}; "
+                                      "fit one depth rule at a time")
+    return {k: dict(v) for k, v in out.items()}
+
+
+def decay_rates(results: Iterable[ProbeResult], *, statistic: str = "mean_var",
+                n_boot: int = 1000, level: float = 0.95, seed: int = 0
+                ) -> dict[GroupKey, DecayFit]:
+    """``fit_decay`` for every group with at least two qubit counts."""
+    fits = {}
+    for key, by_n in sorted(group_probes(results).items()):
+        if len(by_n) >= 2:
+            mats = {n: gradient_matrix(rs) for n, rs in by_n.items()}
+            fits[key] = fit_decay(mats, statistic=statistic, n_boot=n_boot, level=level,
+                                  seed=seed)
+    return fits
+
+
+# ---------------------------------------------------------------------------- curves
+
+
+class CurveSummary(NamedTuple):
+    """Quartiles over seeds per step and steps to reach the target accuracy.
+
+    ``loss_q`` and ``accuracy_q`` have shape (3, T + 1): 25th, 50th and 75th percentiles.
+    ``steps_to_target`` is the median over seeds of the first step with held-out accuracy
+    ``>= target`` (None if fewer than half the seeds reach it); ``reached`` counts them.
+    """
+
+    strategy: str
+    n_qubits: int
+    n_seeds: int
+    loss_q: np.ndarray
+    accuracy_q: np.ndarray
+    target: float
+    steps_to_target: float | None
+    reached: int
+
+
+def first_step(values: np.ndarray, target: float) -> float:
+    """First index with ``values >= target`` (inf if none)."""
+    hits = np.flatnonzero(np.asarray(values) >= target)
+    return float(hits[0]) if hits.size else float("inf")
+
+
+def summarize_curves(curves: Sequence[TrainCurve], *, target: float = 0.9) -> CurveSummary:
+    """``CurveSummary`` of one (strategy, n) group of training curves."""
+    if not curves:
+        raise ThermoseedError("no training curves given")
+    lengths = {len(c.loss) for c in curves}
+    if len(lengths) != 1 or len({(c.strategy, c.n_qubits) for c in curves}) != 1:
+        raise ThermoseedError("curves mix strategies, sizes or step counts; group them first")
+    loss = np.array([c.loss for c in curves])
+    acc = np.array([c.accuracy for c in curves])
+    q = (25, 50, 75)
+    steps = np.array([first_step(a, target) for a in acc])
+    med = float(np.median(steps))
+    return CurveSummary(curves[0].strategy, curves[0].n_qubits, len(curves),
+                        np.percentile(loss, q, axis=0), np.percentile(acc, q, axis=0),
+                        float(target), med if np.isfinite(med) else None,
+                        int(np.isfinite(steps).sum()))

@@ -1,0 +1,348 @@
+"""Plateau sweeps: a grid of independent, seeded jobs run locally or on a dask cluster.
+
+A job is one (task, n, depth, strategy, seed, cost, ...) point; ``task="gradient"`` runs
+``plateau.probe_seeds`` and ``task="training"`` runs ``plateau.train_curve``. Jobs that share
+everything but the seed are batched (``chunk`` seeds per batch, so the circuit is prepared
+once); a seed's numbers do not depend on its batch, its worker or the executor.
+
+Executors: in-process (``workers=1``), local processes (``concurrent.futures``, spawned,
+default all cores), or dask.distributed when ``scheduler`` is an address (extra ``cluster``).
+Dask workers must run one thread each (``dask worker ADDRESS --nthreads 1``): PennyLane
+records circuits in a process-wide queue, so two threads building circuits at once corrupt
+each other.
+
+Results stream to a ``.jsonl`` file: one JSON object per job, written whole, flushed and
+fsynced as it finishes. Rerunning the same sweep skips the jobs already in the file.
+Record keys: ``key`` (the job and data identity), ``job`` (the job's fields), ``data``
+(fingerprint of the classifier data or null), ``result`` (``value``, ``grad``, ``active``,
+``method``, or ``loss``, ``accuracy``) and ``seconds`` (wall time; the only field that varies
+between runs).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import time
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from itertools import groupby
+from multiprocessing import get_context
+from pathlib import Path
+from typing import NamedTuple
+
+import numpy as np
+from tqdm.auto import tqdm
+
+from pretrain.errors import ThermoseedError
+from pretrain.files import atomic_write_bytes
+
+from .plateau import (
+    COSTS,
+    STRATEGIES,
+    LabelledData,
+    PretrainSettings,
+    ProbeResult,
+    TrainCurve,
+    probe_seeds,
+    train_curve,
+)
+
+TASKS = ("gradient", "training")
+#: Seeds batched into one unit of work by default.
+CHUNK = 8
+
+
+class Job(NamedTuple):
+    """One sweep point; every field is JSON-able and the job is deterministic from it."""
+
+    task: str
+    n_qubits: int
+    depth: int
+    strategy: str
+    seed: int
+    cost: str
+    template: str = "soft"
+    scale: float | None = None
+    method: str = "auto"
+    steps: int = 0
+    learning_rate: float = 0.05
+    settings: tuple = tuple(PretrainSettings())
+
+    @property
+    def needs_data(self) -> bool:
+        return (self.cost == "classifier" or self.task == "training"
+                or self.strategy.startswith("pretrained"))
+
+    def as_dict(self) -> dict:
+        out = self._asdict()
+        out["settings"] = PretrainSettings(*self.settings)._asdict()
+        out["settings"]["couplings"] = list(out["settings"]["couplings"])
+        return out
+
+
+def make_grid(ns: Sequence[int], strategies: Sequence[str], seeds: Sequence[int], *,
+              costs: Sequence[str] = ("local",), depths: Sequence[int] | None = None,
+              task: str = "gradient", template: str = "soft", scale: float | None = None,
+              method: str = "auto", steps: int = 50, learning_rate: float = 0.05,
+              settings: PretrainSettings | None = None) -> list[Job]:
+    """All jobs of the grid ns x depths x strategies x costs x seeds (depth = n when
+    ``depths`` is None). ``task="training"`` makes training-curve jobs (cost "classifier")."""
+    if task not in TASKS:
+        raise ThermoseedError(f"unknown task {task!r}; choose one of {TASKS}")
+    for s in strategies:
+        if s not in STRATEGIES:
+            raise ThermoseedError(f"unknown strategy {s!r}; choose one of {STRATEGIES}")
+    costs = ("classifier",) if task == "training" else tuple(costs)
+    for c in costs:
+        if c not in COSTS:
+            raise ThermoseedError(f"unknown cost {c!r}; choose one of {COSTS}")
+    settings = tuple(PretrainSettings() if settings is None else settings)
+    jobs = []
+    for n in ns:
+        for depth in ([n] if depths is None else depths):
+            for strategy in strategies:
+                for cost in costs:
+                    for seed in seeds:
+                        jobs.append(Job(task, int(n), int(depth), strategy, int(seed), cost,
+                                        template, scale, method,
+                                        int(steps) if task == "training" else 0,
+                                        float(learning_rate), settings))
+    return jobs
+
+
+def job_key(job: Job, data_id: str | None) -> str:
+    """Canonical identity of a job and the data it sees (sorted-key JSON)."""
+    return json.dumps({"job": job.as_dict(), "data": data_id}, sort_keys=True)
+
+
+# ---------------------------------------------------------------------------- work
+
+
+def _batch_key(job: Job) -> Job:
+    return job._replace(seed=0)
+
+
+def run_batch(jobs: Sequence[Job], data: LabelledData | None) -> list[dict]:
+    """Results of jobs that differ only in their seed (what a worker runs)."""
+    return [result for _, result in iter_batch(jobs, data)]
+
+
+def iter_batch(jobs: Sequence[Job], data: LabelledData | None) -> Iterator[tuple[Job, dict]]:
+    """Yield ``(job, result)`` one job at a time (same numbers as ``run_batch``)."""
+    first = jobs[0]
+    if any(_batch_key(j) != _batch_key(first) for j in jobs):
+        raise ThermoseedError("a batch must hold jobs that differ only in their seed")
+    settings = PretrainSettings(*first.settings)
+    if first.task == "training":
+        for job in jobs:
+            curve = train_curve(job.strategy, job.n_qubits, job.depth, job.seed, data,
+                                steps=job.steps, learning_rate=job.learning_rate,
+                                template=job.template, scale=job.scale, settings=settings)
+            yield job, {"strategy": curve.strategy, "loss": curve.loss.tolist(),
+                        "accuracy": curve.accuracy.tolist()}
+        return
+    for job in jobs:
+        (res,) = probe_seeds(job.strategy, job.n_qubits, job.depth, job.cost, (job.seed,),
+                             template=job.template, scale=job.scale, data=data,
+                             settings=settings, method=job.method)
+        yield job, {"strategy": res.strategy, "value": res.value, "grad": res.grad.tolist(),
+                    "active": np.flatnonzero(res.active).tolist(), "method": res.method}
+
+
+def _batches(jobs: Sequence[Job], chunk: int) -> list[list[Job]]:
+    out = []
+    for _, group in groupby(jobs, key=_batch_key):
+        group = list(group)
+        out.extend(group[i:i + chunk] for i in range(0, len(group), chunk))
+    return out
+
+
+# ---------------------------------------------------------------------------- records
+
+
+def read_records(path) -> list[dict]:
+    """Records of a sweep file. A torn last line (no newline: the sweep was killed while
+    writing) is dropped and the file rewritten atomically without it."""
+    p = Path(path)
+    if not p.exists():
+        return []
+    raw = p.read_bytes()
+    if raw and not raw.endswith(b"\n"):
+        raw = raw[: raw.rfind(b"\n") + 1]
+        atomic_write_bytes(p, raw)
+    records = []
+    for lineno, line in enumerate(raw.decode("utf-8").splitlines(), start=1):
+        if not line.strip():
+            continue
+        try:
+            rec = json.loads(line)
+        except json.JSONDecodeError as err:
+            raise ThermoseedError(
+                f"sweep file {str(p)!r} line {lineno} is not JSON ({err}); move the file "
+                "aside or pass a new path"
+            ) from err
+        if not isinstance(rec, dict) or "key" not in rec or "result" not in rec:
+            raise ThermoseedError(
+                f"sweep file {str(p)!r} line {lineno} is not a sweep record (no key/result); "
+                "move the file aside or pass a new path"
+            )
+        records.append(rec)
+    return records
+
+
+def _append(handle, record: dict) -> None:
+    handle.write((json.dumps(record, sort_keys=True) + "\n").encode("utf-8"))
+    handle.flush()
+    os.fsync(handle.fileno())
+
+
+class SweepResult(NamedTuple):
+    """All records of the requested jobs (in job order), and how many ran now."""
+
+    records: list
+    ran: int
+    skipped: int
+
+
+def _data_for(job: Job, data: Mapping[int, LabelledData] | None) -> LabelledData | None:
+    if not job.needs_data:
+        return None
+    if data is None or job.n_qubits not in data:
+        raise ThermoseedError(
+            f"job {job.strategy}/{job.cost}/{job.task} at n = {job.n_qubits} needs labelled "
+            f"data: pass data={{{job.n_qubits}: LabelledData(...), ...}}"
+        )
+    return data[job.n_qubits]
+
+
+def run_sweep(jobs: Sequence[Job], path, *, data: Mapping[int, LabelledData] | None = None,
+              workers: int | None = None, scheduler: str | None = None, chunk: int = CHUNK,
+              progress: bool = True, on_record: Callable[[dict], None] | None = None
+              ) -> SweepResult:
+    """Run the jobs not yet in ``path`` and append one record per job as it finishes.
+
+    ``workers``: local processes (default all cores; 1 = in this process). ``scheduler``:
+    a dask.distributed address; the cluster runs the jobs instead. ``data``: classifier data
+    per qubit count. ``on_record(record)`` is called after each record is on disk.
+    """
+    if workers is not None and (not isinstance(workers, int) or workers < 1):
+        raise ThermoseedError(f"workers must be a positive integer, got {workers!r}")
+    if not isinstance(chunk, int) or chunk < 1:
+        raise ThermoseedError(f"chunk must be a positive integer, got {chunk!r}")
+    ids = {n: d.fingerprint() for n, d in (data or {}).items()}
+    keyed = {}
+    for job in jobs:
+        keyed.setdefault(job_key(job, ids.get(job.n_qubits) if job.needs_data else None), job)
+    done = {rec["key"]: rec for rec in read_records(path)}
+    pending = [job for key, job in keyed.items() if key not in done]
+    for job in pending:
+        _data_for(job, data)
+    batches = _batches(pending, chunk)
+    Path(path).parent.mkdir(parents=True, exist_ok=True)
+    bar = tqdm(total=len(pending), disable=not progress, file=sys.stderr, desc="sweep",
+               unit="job")
+    ran = 0
+    try:
+        with open(path, "ab") as handle:
+            for job, result, seconds in _execute(batches, data, workers, scheduler):
+                data_id = ids.get(job.n_qubits) if job.needs_data else None
+                key = job_key(job, data_id)
+                record = {"key": key, "job": job.as_dict(), "data": data_id,
+                          "result": result, "seconds": seconds}
+                _append(handle, record)
+                done[key] = record
+                ran += 1
+                bar.update(1)
+                if on_record is not None:
+                    on_record(record)
+    finally:
+        bar.close()
+    records = [done[key] for key in keyed]
+    return SweepResult(records, ran, len(keyed) - len(pending))
+
+
+def _timed(jobs: Sequence[Job], data: LabelledData | None) -> list[tuple[Job, dict, float]]:
+    start = time.perf_counter()
+    results = run_batch(jobs, data)
+    each = (time.perf_counter() - start) / len(jobs)
+    return [(job, res, each) for job, res in zip(jobs, results, strict=True)]
+
+
+def _execute(batches, data, workers, scheduler):
+    """Yield ``(job, result, seconds)`` as jobs finish, from the chosen executor."""
+    if scheduler is not None:
+        yield from _dask(batches, data, scheduler)
+        return
+    workers = workers or os.cpu_count() or 1
+    if workers == 1:
+        for batch in batches:
+            start = time.perf_counter()
+            for job, result in iter_batch(batch, _data_for(batch[0], data)):
+                now = time.perf_counter()
+                yield job, result, now - start
+                start = now
+        return
+    with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn")) as pool:
+        futures = [pool.submit(_timed, b, _data_for(b[0], data)) for b in batches]
+        try:
+            for future in as_completed(futures):
+                yield from future.result()
+        finally:
+            for future in futures:
+                future.cancel()
+
+
+def _dask(batches, data, scheduler: str):
+    try:
+        from dask.distributed import Client
+        from dask.distributed import as_completed as dask_completed
+    except ImportError as err:
+        raise ThermoseedError(
+            "a scheduler address needs dask.distributed: pip install 'thermoseed[cluster]'"
+        ) from err
+    with Client(scheduler) as client:
+        threads = {w: info.get("nthreads", 1)
+                   for w, info in client.scheduler_info()["workers"].items()}
+        crowded = sorted(w for w, t in threads.items() if t > 1)
+        if crowded:
+            raise ThermoseedError(
+                f"dask workers {crowded} run several threads; PennyLane circuits need one "
+                "thread per worker process: start them with --nthreads 1"
+            )
+        shared = {n: client.scatter([d], broadcast=True)[0] for n, d in (data or {}).items()}
+        futures = [client.submit(_timed, b, shared.get(b[0].n_qubits) if b[0].needs_data
+                                 else None, pure=False) for b in batches]
+        try:
+            for future in dask_completed(futures):
+                yield from future.result()
+        finally:
+            client.cancel(futures)
+
+
+# ---------------------------------------------------------------------------- reading
+
+
+def probe_results(records: Sequence[dict]) -> list[ProbeResult]:
+    """``ProbeResult``s from gradient records (flat ``grad``; ``active`` as a mask)."""
+    out = []
+    for rec in records:
+        job, res = rec["job"], rec["result"]
+        if job["task"] != "gradient":
+            continue
+        grad = np.asarray(res["grad"], dtype=float)
+        active = np.zeros(grad.size, dtype=bool)
+        active[np.asarray(res["active"], dtype=int)] = True
+        out.append(ProbeResult(res["strategy"], job["cost"], job["n_qubits"], job["depth"],
+                               job["seed"], job["template"], float(res["value"]), grad,
+                               active, res["method"]))
+    return out
+
+
+def train_curves(records: Sequence[dict]) -> list[TrainCurve]:
+    """``TrainCurve``s from training records."""
+    return [TrainCurve(rec["result"]["strategy"], rec["job"]["n_qubits"], rec["job"]["depth"],
+                       rec["job"]["seed"], rec["job"]["template"],
+                       np.asarray(rec["result"]["loss"]), np.asarray(rec["result"]["accuracy"]))
+            for rec in records if rec["job"]["task"] == "training"]

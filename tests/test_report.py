@@ -1,0 +1,37 @@
+"""Reports: plots and Markdown render from sweep records; PNGs are real images."""
+
+from __future__ import annotations
+
+import matplotlib.image
+import pytest
+
+from bridge.plateau import LabelledData
+from bridge.report import LIMITS, write_report
+from bridge.sweep import make_grid, run_sweep
+from pretrain.errors import ThermoseedError
+from recipes.magnet_phase import magnet_phase_data, train_test_split
+
+
+def test_report_renders_with_readable_pngs(tmp_path):
+    train, test = train_test_split(magnet_phase_data(2, 8, seed=3), seed=3)
+    data = {2: LabelledData(train.states, train.labels, test.states, test.labels)}
+    jobs = make_grid([2, 3, 4], ["uniform", "identity_blocks", "small_angle"], range(5),
+                     costs=("local", "global"), depths=[1])
+    jobs += make_grid([2], ["uniform", "identity_blocks"], range(3), task="training",
+                      steps=3, depths=[1])
+    out = run_sweep(jobs, tmp_path / "sweep.jsonl", data=data, workers=1, progress=False)
+    report = write_report(out.records, tmp_path / "report", n_boot=200, target=0.5)
+    text = report.read_text()
+    assert LIMITS in text and "no hardware advantage" in text
+    for name in ("decay.png", "curves.png"):
+        png = tmp_path / "report" / name
+        assert png.stat().st_size > 1000
+        assert f"]({name})" in text
+        image = matplotlib.image.imread(png)
+        assert image.ndim == 3 and image.shape[0] > 100 and image.shape[1] > 100
+    assert "| local | identity blocks |" in text and "steps to target" in text
+
+
+def test_report_needs_records(tmp_path):
+    with pytest.raises(ThermoseedError, match="neither"):
+        write_report([], tmp_path)
