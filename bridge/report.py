@@ -24,6 +24,7 @@ from .plateau_stats import (
     DecayFit,
     GroupKey,
     decay_rates,
+    gradient_stats,
     group_probes,
     summarize_curves,
 )
@@ -138,6 +139,23 @@ def decay_table(by_statistic: Mapping[str, Mapping[GroupKey, DecayFit]],
     return "\n".join(lines)
 
 
+def stats_table(groups: Mapping[GroupKey, Mapping[int, list]]) -> str:
+    """Markdown table of ``gradient_stats`` per (cost, strategy, n)."""
+    head = ["cost", "strategy", "n", "depth", "seeds", "active params", "mean_k Var",
+            "max_k Var", "E |grad|^2"]
+    lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    for key in sorted(groups):
+        for n in sorted(groups[key]):
+            if len(groups[key][n]) < 2:
+                continue
+            st = gradient_stats(groups[key][n])
+            lines.append("| " + " | ".join([
+                key.cost, _style(key.strategy)[0], str(n), str(st.depth), str(st.n_seeds),
+                str(st.n_active), f"{st.mean_var:.3g}", f"{st.max_var:.3g}",
+                f"{st.mean_sq_norm:.3g}"]) + " |")
+    return "\n".join(lines)
+
+
 def curve_table(summaries: Sequence[CurveSummary]) -> str:
     """Markdown table of steps to the target held-out accuracy and the final medians."""
     head = ["n", "strategy", "seeds", "target accuracy", "median steps to target",
@@ -166,8 +184,8 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
     if probes:
         by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed)
                    for s in ("mean_var", "max_var")}
-        seeds = {k: min(len(v) for v in by_n.values())
-                 for k, by_n in group_probes(probes).items()}
+        groups = group_probes(probes)
+        seeds = {k: min(len(v) for v in by_n.values()) for k, by_n in groups.items()}
         methods = sorted({p.method for p in probes})
         parts += ["## Gradient variance at initialisation", "",
                   "Var over seeds of dC/dphi_k, averaged (mean_var) or maximised (max_var) "
@@ -177,7 +195,7 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
         if by_stat["mean_var"]:
             plot_decay(by_stat["mean_var"], folder / "decay.png")
             parts += ["![log2 gradient variance against qubit count](decay.png)", ""]
-        parts += [decay_table(by_stat, seeds), ""]
+        parts += [decay_table(by_stat, seeds), "", "Per size:", "", stats_table(groups), ""]
     if curves:
         groups = defaultdict(list)
         for c in curves:

@@ -1,0 +1,159 @@
+"""Benchmark: wall time of plateau probe sweeps and of the pretrained strategy (run by hand).
+
+    PYTHONPATH=. python tests/benchmarks/bench_plateau_sweep.py
+    PYTHONPATH=. python tests/benchmarks/bench_plateau_sweep.py --ns 4 6 8 --seeds 10 \
+        --pretrained-ns 4 --pretrained-seeds 2          # shrunk
+
+(from the repository root). Not collected by pytest (the file name does not start with
+``test_``).
+
+Case 1, ``probe_sweep``: ``bridge.sweep.run_sweep`` over n = 4, 6, ..., 12 (``--ns``),
+strategies uniform / small_angle / identity_blocks, ``--seeds`` seeds (default 50), depth n
+per half of ``V = U(h) U(e)^dag`` ("soft" template), cost ``--cost`` (default local), once
+with each worker count in ``--workers`` (default 1 and 2), into a fresh temporary file.
+Target: under 300 s with 2 workers; speed-up near the worker count.
+
+Case 2, ``pretrained_probe``: ``bridge.plateau.probe("pretrained", n, n, "classifier", seed)``
+on magnet-phase data (32 ground states of the transverse-field Ising chain, 25% held out,
+``recipes.magnet_phase``), i.e. bootstrap resample + Gibbs fit + latent compile + warm start +
+classifier gradient, timed per seed for n in ``--pretrained-ns`` (default 4, 6, 8) and
+``--pretrained-seeds`` seeds (default 3). Target: n = 8 under 120 s per seed.
+
+Output: a human-readable table, then one JSON object per measured case per line with keys
+  case            "probe_sweep" or "pretrained_probe"
+  cpu_count       os.cpu_count()
+  load_before     1-minute load average just before the case (the machine may be shared)
+probe_sweep:
+  workers         local worker processes (1 = in-process)
+  ns, strategies, seeds, cost, template   the grid (depth = n)
+  jobs            number of jobs
+  wall_s          wall-clock seconds of run_sweep (includes starting the worker processes)
+  job_s_by_n      {n: summed per-job seconds} from the records (compute time, not wall)
+  speedup         wall_s of 1 worker / this wall_s (null when 1 worker was not measured)
+  target_met      wall_s < 300 (2 workers only, else null)
+pretrained_probe:
+  n, depth        qubits and layers per half
+  seeds           seeds timed
+  seconds         wall-clock seconds per seed
+  median_s        median of seconds
+  target_met      median_s < 120 (n = 8 only, else null)
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+SWEEP_TARGET_S = 300.0
+PRETRAINED_TARGET_S = 120.0
+
+
+def parse(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--ns", type=int, nargs="+", default=[4, 6, 8, 10, 12])
+    p.add_argument("--seeds", type=int, default=50)
+    p.add_argument("--strategies", nargs="+",
+                   default=["uniform", "small_angle", "identity_blocks"])
+    p.add_argument("--cost", default="local", choices=["local", "global"])
+    p.add_argument("--template", default="soft")
+    p.add_argument("--workers", type=int, nargs="+", default=[1, 2])
+    p.add_argument("--pretrained-ns", type=int, nargs="*", default=[4, 6, 8])
+    p.add_argument("--pretrained-seeds", type=int, default=3)
+    return p.parse_args(argv)
+
+
+def sweep_cases(args) -> list[dict]:
+    from bridge.sweep import make_grid, run_sweep
+
+    jobs = make_grid(args.ns, args.strategies, range(args.seeds), costs=(args.cost,),
+                     template=args.template)
+    out = []
+    base = None
+    for workers in args.workers:
+        load = os.getloadavg()[0]
+        with tempfile.TemporaryDirectory() as tmp:
+            start = time.perf_counter()
+            result = run_sweep(jobs, Path(tmp) / "sweep.jsonl", workers=workers,
+                               progress=False)
+            wall = time.perf_counter() - start
+        by_n: dict[int, float] = {}
+        for rec in result.records:
+            n = rec["job"]["n_qubits"]
+            by_n[n] = by_n.get(n, 0.0) + rec["seconds"]
+        if workers == 1:
+            base = wall
+        out.append({
+            "case": "probe_sweep", "workers": workers, "ns": list(args.ns),
+            "strategies": list(args.strategies), "seeds": args.seeds, "cost": args.cost,
+            "template": args.template, "jobs": len(jobs), "wall_s": round(wall, 2),
+            "job_s_by_n": {str(n): round(v, 2) for n, v in sorted(by_n.items())},
+            "speedup": None if base is None else round(base / wall, 2),
+            "target_met": (wall < SWEEP_TARGET_S) if workers == 2 else None,
+            "cpu_count": os.cpu_count(), "load_before": round(load, 2),
+        })
+    return out
+
+
+def pretrained_cases(args) -> list[dict]:
+    from bridge.plateau import LabelledData, probe
+    from recipes.magnet_phase import magnet_phase_data, train_test_split
+
+    out = []
+    for n in args.pretrained_ns:
+        train, test = train_test_split(magnet_phase_data(n, 32, seed=0), seed=0)
+        data = LabelledData(train.states, train.labels, test.states, test.labels)
+        load = os.getloadavg()[0]
+        seconds = []
+        for seed in range(args.pretrained_seeds):
+            start = time.perf_counter()
+            probe("pretrained", n, n, "classifier", seed, data=data)
+            seconds.append(round(time.perf_counter() - start, 2))
+        med = statistics.median(seconds)
+        out.append({
+            "case": "pretrained_probe", "n": n, "depth": n, "seeds": args.pretrained_seeds,
+            "seconds": seconds, "median_s": med,
+            "target_met": (med < PRETRAINED_TARGET_S) if n == 8 else None,
+            "cpu_count": os.cpu_count(), "load_before": round(load, 2),
+        })
+    return out
+
+
+def table(cases: list[dict]) -> str:
+    lines = []
+    sweeps = [c for c in cases if c["case"] == "probe_sweep"]
+    if sweeps:
+        lines.append(f"probe sweep: n = {sweeps[0]['ns']}, {sweeps[0]['strategies']}, "
+                     f"{sweeps[0]['seeds']} seeds, depth n, cost {sweeps[0]['cost']}, "
+                     f"{sweeps[0]['jobs']} jobs")
+        lines.append(f"{'workers':>8} {'wall s':>9} {'speed-up':>9} {'< 300 s':>8}  "
+                     "job seconds by n")
+        for c in sweeps:
+            lines.append(f"{c['workers']:>8} {c['wall_s']:>9.1f} {str(c['speedup']):>9} "
+                         f"{str(c['target_met']):>8}  {c['job_s_by_n']}")
+    pre = [c for c in cases if c["case"] == "pretrained_probe"]
+    if pre:
+        lines.append("pretrained strategy (fit + compile + classifier gradient), per seed:")
+        lines.append(f"{'n':>4} {'median s':>9} {'< 120 s':>8}  seconds")
+        for c in pre:
+            lines.append(f"{c['n']:>4} {c['median_s']:>9.1f} {str(c['target_met']):>8}  "
+                         f"{c['seconds']}")
+    return "\n".join(lines)
+
+
+def main(argv=None) -> int:
+    args = parse(argv)
+    cases = sweep_cases(args) if args.workers and args.ns else []
+    cases += pretrained_cases(args) if args.pretrained_ns else []
+    print(table(cases))
+    for case in cases:
+        print(json.dumps(case, sort_keys=True))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
