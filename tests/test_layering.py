@@ -14,8 +14,9 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 PRETRAIN_ORDER = ["errors", "_base", "files", "linalg", "paulis", "data", "engines", "fit",
                   "models", "diagnostics", "io"]
-BRIDGE_ORDER = ["ansatz", "compile", "seed", "discriminative", "plateau", "sweep", "report",
-                "cli"]
+BRIDGE_ORDER = ["unitaries", "ansatz", "compile", "compile_io", "seed", "discriminative",
+                "eigensolver", "plateau_grad", "plateau", "plateau_stats", "sweep", "report",
+                "findings", "neighbour", "recipe_config", "pipeline", "cli", "__main__"]
 ORDERS = {"pretrain": PRETRAIN_ORDER, "bridge": BRIDGE_ORDER}
 
 
@@ -93,12 +94,20 @@ def test_pretrain_order_matches_package_docstring():
     assert documented == PRETRAIN_ORDER
 
 
-def test_every_pretrain_module_is_ranked():
-    for path in python_files("pretrain"):
+@pytest.mark.parametrize("package", ["pretrain", "bridge"])
+def test_every_module_is_ranked(package):
+    for path in python_files(package):
         name = module_name(path)
-        if name == "pretrain":
+        if name == package:
             continue
         assert rank(name) is not None, f"{name} is missing from the layer order"
+
+
+def test_bridge_order_matches_package_docstring():
+    doc = ast.get_docstring(ast.parse((ROOT / "bridge" / "__init__.py").read_text()))
+    line = doc.split("Layering")[1].split(":", 1)[1].split(".")[0]
+    documented = [part.strip() for part in line.replace("\n", " ").split(",")]
+    assert documented == BRIDGE_ORDER
 
 
 @pytest.mark.parametrize("package", ["pretrain", "bridge"])
