@@ -21,24 +21,23 @@ No symmetry-breaking field is added: deep in the ordered phase the state is cat-
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from pretrain.engines import DenseEngine
 from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_save_npz
 from pretrain.linalg import eigh
 from pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 
 from ._checks import inverse_temperature, qubit_count, real_number, seed_value
+from ._record import ScenarioRecord
 
 #: Largest chain handled (dense 2^n x 2^n diagonalisation per sample).
 MAX_QUBITS = 12
 
 
 @dataclass(frozen=True, eq=False)
-class MagnetPhaseData:
+class MagnetPhaseData(ScenarioRecord):
     """A batch of transverse-field Ising states with phase labels.
 
     Attributes:
@@ -61,8 +60,6 @@ class MagnetPhaseData:
     states: np.ndarray | None = None
     density: np.ndarray | None = None
 
-    def __len__(self) -> int:
-        return len(self.labels)
 
     def subset(self, index: np.ndarray) -> MagnetPhaseData:
         """The samples at ``index`` (a new record; arrays are copied)."""
@@ -92,9 +89,6 @@ class MagnetPhaseData:
         out["coupling"] = np.asarray(self.coupling, dtype=float)
         return out
 
-    def save_npz(self, path) -> Path:
-        """Write the schema of ``pretrain.data`` atomically; returns the path."""
-        return atomic_save_npz(path, self.arrays())
 
 
 def _check_coupling(coupling: float) -> float:

@@ -14,23 +14,22 @@ included), 2 = Neel antiferromagnet (``Delta > 1``).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from pretrain.engines import DenseEngine
 from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_save_npz
 from pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 
 from ._checks import inverse_temperature, qubit_count, real_number
+from ._record import ScenarioRecord
 
 #: Largest chain handled (dense 2^n x 2^n diagonalisation).
 MAX_QUBITS = 12
 
 
 @dataclass(frozen=True, eq=False)
-class XXZThermalData:
+class XXZThermalData(ScenarioRecord):
     """Thermal states of the XXZ chain.
 
     Attributes:
@@ -49,8 +48,6 @@ class XXZThermalData:
     labels: np.ndarray
     density: np.ndarray
 
-    def __len__(self) -> int:
-        return len(self.labels)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The ``.npz`` payload: ``density``, ``labels`` and the per-sample parameters."""
@@ -62,9 +59,6 @@ class XXZThermalData:
             "coupling": np.asarray(self.coupling, dtype=float),
         }
 
-    def save_npz(self, path) -> Path:
-        """Write the schema of ``pretrain.data`` atomically; returns the path."""
-        return atomic_save_npz(path, self.arrays())
 
 
 def _check_coupling(coupling: float) -> float:

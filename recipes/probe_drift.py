@@ -17,14 +17,13 @@ so they commute and the order does not matter. Phases are wrapped to ``[-pi, pi)
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_save_npz
 
 from ._checks import integer_in, real_number
+from ._record import ScenarioRecord
 
 #: Largest probe handled (dense 2^n x 2^n density matrices per sample).
 MAX_QUBITS = 10
@@ -36,7 +35,7 @@ _Z2 = np.array([[1, 0], [0, -1]], dtype=complex)
 
 
 @dataclass(frozen=True, eq=False)
-class ProbeDriftData:
+class ProbeDriftData(ScenarioRecord):
     """A batch of noisy probe density matrices with drift labels.
 
     Attributes:
@@ -57,8 +56,6 @@ class ProbeDriftData:
     labels: np.ndarray
     density: np.ndarray
 
-    def __len__(self) -> int:
-        return len(self.labels)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The ``.npz`` payload: ``density``, ``labels`` and the per-sample parameters."""
@@ -71,9 +68,6 @@ class ProbeDriftData:
             "tolerance": np.asarray(self.tolerance, dtype=float),
         }
 
-    def save_npz(self, path) -> Path:
-        """Write the schema of ``pretrain.data`` atomically; returns the path."""
-        return atomic_save_npz(path, self.arrays())
 
 
 # ---------------------------------------------------------------- checks
