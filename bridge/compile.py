@@ -231,14 +231,18 @@ def _optimise(objective, inits, *, max_iter, tol, progress, desc):
 
 
 def _report(result: CompileResult, objective: float, floor: float, converged: bool,
-            restarts: int, sigma: np.ndarray, data_rho) -> CompileReport:
+            restarts: int, model, data_rho) -> CompileReport:
     compiled = result.state()
+    sigma = model.state()
     data = (None, None, None)
     if data_rho is not None:
         data = (relative_entropy(data_rho, compiled), fidelity(compiled, data_rho),
                 trace_distance(compiled, data_rho))
+    # S(rho||sigma) = -S(rho) + Tr(rho H) + log Z: exact for a Gibbs state, whose dense sigma
+    # can hold eigenvalues that underflowed to ~0 at low temperature (the dense formula then
+    # reports inf although the true value is finite)
     return CompileReport(
-        objective, floor, relative_entropy(compiled, sigma), fidelity(compiled, sigma),
+        objective, floor, model.relative_entropy(compiled), fidelity(compiled, sigma),
         trace_distance(compiled, sigma), *data, converged, restarts)
 
 
@@ -288,8 +292,8 @@ def compile_latent(
         lat = Latent("product", keep, np.asarray(qx)[keep] / np.sum(qx), 1.0)
     result = CompileResult("latent", ansatz, params, lat, None, n, list(model.terms_.labels),
                            np.asarray(model.coef_, float), best.history["loss"])
-    result.report = _report(result, best.loss, floor, best.converged, restarts,
-                            model.state(), _data_rho(data))
+    result.report = _report(result, best.loss, floor, best.converged, restarts, model,
+                            _data_rho(data))
     return result
 
 
@@ -322,7 +326,7 @@ def compile_purified(
     result = CompileResult("purified", ansatz, best.x.reshape(ansatz.shape), None, None, n,
                            list(model.terms_.labels), np.asarray(model.coef_, float),
                            best.history["loss"])
-    result.report = _report(result, best.loss, 0.0, best.converged, restarts, model.state(),
+    result.report = _report(result, best.loss, 0.0, best.converged, restarts, model,
                             _data_rho(data))
     return result
 

@@ -14,6 +14,7 @@ import pennylane as qml
 import pytest
 import qutip
 import scipy.linalg
+import scipy.special
 from conftest import random_density, reference_hamiltonian
 
 from bridge.ansatz import ansatz_columns, make_ansatz, user_ansatz
@@ -317,6 +318,28 @@ def test_report_distances_match_pennylane(name, model2, data2, request):
             float(qml.math.trace_distance(rho, data2)), abs=1e-10)
         assert rep.data_relative_entropy == pytest.approx(
             float(qml.math.relative_entropy(data2, rho, base=None)), abs=1e-7)
+
+
+def test_report_relative_entropy_is_finite_at_low_temperature():
+    """A cold Gibbs state's smallest dense eigenvalues underflow below 1e-15; the true
+    S(rho||sigma) = -S(rho) + Tr(rho H) + log Z stays finite and the report must give it."""
+    terms = graph_terms(2, "line", fields="XZ", couplings=("ZZ", "XX"))
+    coef = 30.0 * np.random.default_rng(0).normal(0.0, 0.7, len(terms))
+    model = VisibleGibbsModel.from_coefficients(terms, coef)
+    # Source: hand-written Kronecker products (tests/conftest.py), numpy eigvalsh and
+    # scipy.special.logsumexp for log Z.
+    h = reference_hamiltonian(coef, terms.labels)
+    energies = np.linalg.eigvalsh(h)
+    assert np.exp(-(energies[-1] - energies[0])) < 1e-15  # precondition: underflow regime
+    result = compile_latent(model, make_ansatz("strong", 2, 1), weight=1.0, restarts=1,
+                            seed=0, max_iter=5)
+    rho = result.state()
+    vals = np.clip(np.linalg.eigvalsh(rho), 1e-300, None)
+    exact = (float(np.sum(vals * np.log(vals))) + float(np.real(np.trace(rho @ h)))
+             + float(scipy.special.logsumexp(-energies)))
+    assert np.isfinite(result.report.model_relative_entropy)
+    assert result.report.model_relative_entropy == pytest.approx(exact, rel=1e-9)
+    assert result.report.objective == pytest.approx(exact, rel=1e-9)
 
 
 def test_report_with_data_is_filled(rough2, purified2, full2):
