@@ -3,9 +3,10 @@
 Latent form: ``sigma~ = U diag(q) U^dag`` with q on a few basis states. Objective
     ``S(sigma~||sigma) = -H(q) + sum_x q_x <x|U^dag H U|x> + log Z  (>= 0)``,
 zero exactly when U maps latent basis state x_i to the i-th eigenvector and q matches the
-spectrum. ``latent="spectrum"``: q = top-k eigenvalues of sigma (sorted, renormalised, on basis
-states 0..k-1); its floor is ``-log(captured weight)``. ``latent="product"``: q a product of
-Bernoulli(p_k) with trainable logits (the variational-quantum-thermalizer form).
+spectrum. ``latent="spectrum"``: q = top-k eigenvalues of sigma (sorted, renormalised, on the
+basis states ``latent_order`` gives: wire 0 varies fastest); its floor is
+``-log(captured weight)``. ``latent="product"``: q a product of Bernoulli(p_k) with trainable
+logits (the variational-quantum-thermalizer form).
 
 Purified form: a circuit W on visible + ancilla wires from |0...0>, objective
 ``S(Tr_anc W|0><0|W^dag || sigma) = -S(rho_v) + Tr(rho_v H) + log Z``.
@@ -179,10 +180,21 @@ def _bernoulli_product(logits, n):
     return q, ent
 
 
+def latent_order(k: int, n_qubits: int) -> np.ndarray:
+    """Basis states for latent slots 0..k-1 with wire 0 varying fastest: slot i goes to the
+    bit-reversal of i. The two most probable eigenvectors then differ on wire 0 (the
+    default readout), instead of all of the first 2^(n-1) slots sharing wire 0 = 0."""
+    slots = np.arange(k)
+    out = np.zeros(k, dtype=np.int64)
+    for bit in range(n_qubits):
+        out |= ((slots >> bit) & 1) << (n_qubits - 1 - bit)
+    return out
+
+
 def spectrum_latent(model_energies: np.ndarray, *, k: int | None = None,
                     weight: float = 0.999) -> Latent:
     """Top-k eigenvalues of sigma (k given, or the fewest reaching cumulative ``weight``),
-    renormalised and placed on basis states 0..k-1."""
+    renormalised and placed on the basis states ``latent_order(k, n)``."""
     _, probs = log_sum_exp_neg(model_energies)
     order = np.sort(probs)[::-1]
     if k is None:
@@ -191,7 +203,8 @@ def spectrum_latent(model_energies: np.ndarray, *, k: int | None = None,
         k = int(np.searchsorted(np.cumsum(order), weight - 1e-12) + 1)
     k = int(min(max(k, 1), len(order)))
     top = order[:k]
-    return Latent("spectrum", np.arange(k), top / top.sum(), float(top.sum()))
+    n_qubits = int(round(np.log2(len(order))))
+    return Latent("spectrum", latent_order(k, n_qubits), top / top.sum(), float(top.sum()))
 
 
 def _check_model(model, ansatz: Ansatz, n_wires: int):

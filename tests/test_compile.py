@@ -187,8 +187,9 @@ def test_objective_matches_pennylane_relative_entropy(name, model2, request):
 
 
 def test_under_fitted_compile_is_not_trivially_zero(rough2, rough2_rank2):
-    # guards the comparisons above against comparing zeros
-    assert rough2.report.objective > 1e-2
+    # guards the comparisons above against comparing zeros (1e-3 is far above the 1e-8
+    # agreement they check)
+    assert rough2.report.objective > 1e-3
     assert rough2_rank2.report.objective > 1e-2
     assert np.linalg.matrix_rank(rough2_rank2.state(), tol=1e-8) == 2
 
