@@ -13,6 +13,7 @@ import numpy as np
 import pennylane as qml
 import pytest
 import scipy.linalg
+from numerics import central_differences
 
 from bridge.ansatz import (
     TEMPLATES,
@@ -27,9 +28,8 @@ from pretrain.errors import ThermoseedError
 TWO_WIRE_TEMPLATES = ("ladder", "soft")
 #: Agreement of two exact matrix computations in double precision.
 MATRIX_ATOL = 1e-12
-#: Central finite differences with step FD_STEP have O(FD_STEP^2) truncation error plus
-#: round-off ~1e-16 / FD_STEP; both stay below FD_ATOL for these O(1) functions.
-FD_STEP = 1e-6
+#: Central finite differences (tests/numerics.py, step 1e-6) have O(step^2) truncation error
+#: plus round-off ~1e-16 / step; both stay below FD_ATOL for these O(1) functions.
 FD_ATOL = 1e-7
 
 
@@ -43,17 +43,6 @@ def _cases():
 
 def _pennylane_matrix(ansatz, params):
     return qml.matrix(lambda p: ansatz(p), wire_order=list(ansatz.wires))(params)
-
-
-def _central_differences(f, x, step=FD_STEP):
-    x = np.asarray(x, dtype=float)
-    out = np.zeros(x.size)
-    for i in range(x.size):
-        e = np.zeros(x.size)
-        e[i] = step
-        out[i] = (f((x.ravel() + e).reshape(x.shape)) - f((x.ravel() - e).reshape(x.shape)))
-        out[i] /= 2 * step
-    return out.reshape(x.shape)
 
 
 def _custom_qfunc(params, wires):
@@ -133,7 +122,7 @@ def test_unitary_gradient_matches_finite_differences(name):
     grad = autograd.grad(scalar)(params)
     assert grad.shape == ansatz.shape
     # Source: central finite differences of the same scalar.
-    fd = _central_differences(lambda p: float(scalar(p)), params)
+    fd = central_differences(lambda p: float(scalar(p)), params)
     np.testing.assert_allclose(grad, fd, atol=FD_ATOL * np.abs(fd).max(), rtol=0)
     assert np.abs(grad).max() > 1e-3  # a non-trivial gradient was compared
 
@@ -150,7 +139,7 @@ def test_user_ansatz_unitary_matches_pennylane_and_has_gradient():
         return anp.real(unitary(ansatz, p)[1, 2] * anp.conj(unitary(ansatz, p)[3, 0]))
 
     grad = autograd.grad(scalar)(params)
-    fd = _central_differences(lambda p: float(scalar(p)), params)  # Source: central FD.
+    fd = central_differences(lambda p: float(scalar(p)), params)  # Source: central FD.
     np.testing.assert_allclose(grad, fd, atol=FD_ATOL, rtol=0)
     assert np.abs(grad).max() > 1e-3
 

@@ -16,6 +16,7 @@ import qutip
 import scipy.linalg
 import scipy.special
 from conftest import random_density, reference_hamiltonian
+from numerics import central_differences
 
 from bridge.ansatz import ansatz_columns, make_ansatz, user_ansatz
 from bridge.compile import _entropy_of_factor, compile_latent, compile_purified
@@ -31,7 +32,6 @@ TARGET_FIDELITY = 0.999
 ROUNDOFF = 1e-10
 #: Two exact dense computations of the same quantity in double precision.
 DENSE_ATOL = 1e-9
-FD_STEP = 1e-6
 
 
 def _model(n, seed, scale=0.7, couplings=("ZZ", "XX")):
@@ -56,15 +56,6 @@ def _relative_entropy_logm(rho, sigma):
     vals = vals[vals > 1e-14]
     cross = np.real(np.trace(rho @ scipy.linalg.logm(sigma)))
     return float(np.sum(vals * np.log(vals)) - cross)
-
-
-def _central_differences(f, x, step=FD_STEP):
-    out = np.zeros(x.size)
-    for i in range(x.size):
-        e = np.zeros(x.size)
-        e[i] = step
-        out[i] = (f(x + e) - f(x - e)) / (2 * step)
-    return out
 
 
 # ----------------------------------------------------------------------- shared compiles
@@ -212,10 +203,10 @@ def test_latent_optimum_is_stationary_for_an_independent_objective(model2):
 
     x = result.params.ravel()
     assert independent(x) == pytest.approx(result.report.objective, abs=DENSE_ATOL)
-    assert np.linalg.norm(_central_differences(independent, x)) < 1e-6
+    assert np.linalg.norm(central_differences(independent, x)) < 1e-6
     # ... while a step of 0.01 away from it the gradient is clearly non-zero
     nudged = x + 0.01 * np.random.default_rng(0).standard_normal(x.size)
-    assert np.linalg.norm(_central_differences(independent, nudged)) > 1e-4
+    assert np.linalg.norm(central_differences(independent, nudged)) > 1e-4
 
 
 def test_product_latent_form(model2, product2, full2):
@@ -269,7 +260,7 @@ def test_entropy_of_factor_value_and_gradient():
             ref = float(qml.math.vn_entropy(rho, indices=[0, 1], base=None))
             assert f(x) == pytest.approx(ref, abs=1e-9)
         grad = autograd.grad(f)(x)
-        fd = _central_differences(lambda z: float(f(z)), x)  # Source: central FD.
+        fd = central_differences(lambda z: float(f(z)), x)  # Source: central FD.
         np.testing.assert_allclose(grad, fd, atol=1e-6, rtol=0)
         assert np.abs(grad).max() > 1e-2
 
@@ -287,7 +278,7 @@ def test_purified_objective_gradient_matches_finite_differences(model2):
 
     x = ansatz.random_params(9).ravel()
     grad = autograd.grad(objective)(x)
-    fd = _central_differences(lambda z: float(objective(z)), x)  # Source: central FD.
+    fd = central_differences(lambda z: float(objective(z)), x)  # Source: central FD.
     np.testing.assert_allclose(grad, fd, atol=1e-6, rtol=0)
     # and its value is S(Tr_anc |psi><psi| || sigma) (Source: logm)
     psi = np.asarray(ansatz_columns(ansatz, x.reshape(ansatz.shape), [0]))[0].reshape(4, 4)

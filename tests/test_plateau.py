@@ -298,6 +298,8 @@ def test_fit_decay_recovers_known_slope():
     (lambda: probe("uniform", 1, 1), "n_qubits"),
     (lambda: probe("uniform", 2, 1, seed=-1), "seed"),
     (lambda: small_angle(-0.1), "scale"),
+    (lambda: probe("uniform", 3, 1, "classifier", data=magnet_data(2)), "n = 3"),
+    (lambda: train_curve("uniform", 2, 1, 0, None), "needs data"),
     (lambda: identity_blocks()((3, 4), np.random.default_rng(0)), "pair of shape"),
     (lambda: CircuitGradient(make_ansatz("soft", 2, 1), "local", "magic"), "method"),
 ])

@@ -11,6 +11,7 @@ import numpy as np
 import pennylane as qml
 import pytest
 from conftest import random_density, random_state
+from numerics import central_differences
 from pennylane import numpy as pnp
 
 from bridge.ansatz import make_ansatz, unitary, user_ansatz
@@ -21,16 +22,6 @@ from pretrain import VisibleGibbsModel, graph_terms
 from pretrain.errors import ThermoseedError
 
 IDENTITY_ATOL = 1e-12
-FD_STEP = 1e-6
-
-
-def _central_differences(f, x, step=FD_STEP):
-    out = np.zeros(x.size)
-    for i in range(x.size):
-        e = np.zeros(x.size)
-        e[i] = step
-        out[i] = (f(x + e) - f(x - e)) / (2 * step)
-    return out
 
 
 def _bits(x, n):
@@ -169,7 +160,7 @@ def test_loss_gradient_matches_finite_differences(compiled3, readout, n_classes,
     labels = rng.integers(0, n_classes, 5)
     params = rng.uniform(0, 2 * np.pi, circuit.n_params)
     grad = autograd.grad(circuit.loss)(params, states, labels)
-    fd = _central_differences(lambda p: float(circuit.loss(p, states, labels)), params)
+    fd = central_differences(lambda p: float(circuit.loss(p, states, labels)), params)
     np.testing.assert_allclose(grad, fd, atol=1e-6, rtol=0)  # Source: central FD.
     assert np.abs(grad).max() > 1e-3
     # the loss is the mean cross-entropy of the class probabilities

@@ -1,0 +1,21 @@
+"""Numerical helpers shared by tests (importable because pytest puts tests/ on sys.path)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Default step: truncation error O(step^2) and round-off ~1e-16/step, both ~1e-10 for O(1)
+#: functions (common practice for double precision).
+FD_STEP = 1e-6
+
+
+def central_differences(f, x, step: float = FD_STEP) -> np.ndarray:
+    """Gradient of scalar ``f`` at ``x`` (any shape) by ``(f(x + h e_i) - f(x - h e_i)) / 2h``,
+    returned in the shape of ``x``."""
+    x = np.asarray(x, dtype=float)
+    out = np.zeros(x.size)
+    for i in range(x.size):
+        e = np.zeros(x.size)
+        e[i] = step
+        out[i] = (f(x + e.reshape(x.shape)) - f(x - e.reshape(x.shape))) / (2 * step)
+    return out.reshape(x.shape)
