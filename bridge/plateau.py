@@ -104,6 +104,26 @@ class LabelledData(NamedTuple):
     def n_qubits(self) -> int:
         return int(np.log2(np.shape(self.train_states)[1]))
 
+    def check(self, n_qubits: int) -> LabelledData:
+        """Raise ``ThermoseedError`` unless the arrays fit an n-qubit classifier."""
+        d = 2**n_qubits
+        for part in ("train", "test"):
+            states = np.asarray(getattr(self, f"{part}_states"))
+            labels = np.asarray(getattr(self, f"{part}_labels"))
+            if states.ndim not in (2, 3) or states.shape[1:] not in ((d,), (d, d)) \
+                    or len(states) < 1:
+                raise ThermoseedError(
+                    f"{part}_states must be (B, {d}) state vectors or (B, {d}, {d}) density "
+                    f"matrices for n = {n_qubits}, got shape {states.shape}; pass the data "
+                    "generated for this qubit count"
+                )
+            if labels.shape != (len(states),) or not np.issubdtype(labels.dtype, np.integer):
+                raise ThermoseedError(
+                    f"{part}_labels must be {len(states)} integers (one per state), got "
+                    f"shape {labels.shape} dtype {labels.dtype}"
+                )
+        return self
+
     def fingerprint(self) -> str:
         """sha256 of the four arrays (identifies the data in sweep records)."""
         digest = hashlib.sha256()
@@ -198,7 +218,8 @@ def _positive(value, what: str) -> float:
 
 
 def probe_circuit(template: str | Ansatz, n_qubits: int, depth: int) -> Ansatz:
-    """The ansatz U of ``V = U(h) U(e)^dag``: a built-in template name or the user's Ansatz."""
+    """The ansatz U of ``V = U(h) U(e)^dag``: a built-in template name with ``depth`` layers,
+    or the user's Ansatz as it is (``depth`` is then only a label in the results)."""
     if isinstance(template, Ansatz):
         if template.n_wires != n_qubits:
             raise ThermoseedError(f"ansatz acts on {template.n_wires} wires, not n = {n_qubits}")
@@ -283,6 +304,8 @@ def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str =
         raise ThermoseedError(f"unknown cost {cost!r}; choose one of {COSTS}")
     if cost == "classifier" and data is None:
         raise ThermoseedError("cost 'classifier' needs data=LabelledData(...)")
+    if data is not None:
+        data.check(n)
     unit = probe_circuit(template, n, depth)
     strat = _resolve(strategy, unit, data, scale, settings)
     if cost == "classifier":
@@ -336,6 +359,9 @@ def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
     n, depth = _check_size(n_qubits, depth)
     if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1:
         raise ThermoseedError(f"steps must be a positive integer, got {steps!r}")
+    if not isinstance(data, LabelledData):
+        raise ThermoseedError("train_curve needs data=LabelledData(...) with a held-out set")
+    data.check(n)
     unit = probe_circuit(template, n, depth)
     init_rng, _, batch_rng = _streams(seed)
     strat = _resolve(strategy, unit, data, scale, settings)

@@ -84,7 +84,7 @@ def plot_decay(fits: Mapping[GroupKey, DecayFit], path) -> Path:
         ax.set_title(COST_TITLES.get(cost, cost), fontsize=10)
         ax.set_xlabel("qubits n")
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
-        ax.set_ylabel(f"log2 {_STAT_LABEL[statistic]}  ((cost unit / rad)^2)")
+        ax.set_ylabel(f"log2 {_STAT_LABEL[statistic]}\n(unit: (cost unit / rad)^2)")
         ax.legend(fontsize=7, title="slope, log2 units per qubit", title_fontsize=7)
         ax.grid(alpha=0.3)
     return _save(fig, path)

@@ -3,7 +3,8 @@
 A job is one (task, n, depth, strategy, seed, cost, ...) point; ``task="gradient"`` runs
 ``plateau.probe_seeds`` and ``task="training"`` runs ``plateau.train_curve``. Jobs that share
 everything but the seed are batched (``chunk`` seeds per batch, so the circuit is prepared
-once); a seed's numbers do not depend on its batch, its worker or the executor.
+once; pretrained and training jobs run singly); a seed's numbers do not depend on its batch,
+its worker or the executor.
 
 Executors: in-process (``workers=1``), local processes (``concurrent.futures``, spawned,
 default all cores), or dask.distributed when ``scheduler`` is an address (extra ``cluster``).
@@ -152,10 +153,13 @@ def iter_batch(jobs: Sequence[Job], data: LabelledData | None) -> Iterator[tuple
 
 
 def _batches(jobs: Sequence[Job], chunk: int) -> list[list[Job]]:
+    """Consecutive same-circuit jobs, ``chunk`` seeds at a time; pretrained and training
+    jobs one at a time (their cost is per seed, so batching would only hurt balance)."""
     out = []
-    for _, group in groupby(jobs, key=_batch_key):
+    for key, group in groupby(jobs, key=_batch_key):
         group = list(group)
-        out.extend(group[i:i + chunk] for i in range(0, len(group), chunk))
+        size = 1 if key.task == "training" or key.strategy.startswith("pretrained") else chunk
+        out.extend(group[i:i + size] for i in range(0, len(group), size))
     return out
 
 
