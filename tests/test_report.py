@@ -1,4 +1,7 @@
-"""Reports: plots and Markdown render from sweep records; PNGs are real images."""
+"""Reports: plots and Markdown render from sweep records; PNGs are real images.
+
+Source for "readable": matplotlib.image.imread decodes the files (PNG via Pillow).
+"""
 
 from __future__ import annotations
 

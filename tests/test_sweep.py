@@ -1,4 +1,9 @@
-"""Sweeps: identical numbers from every executor, streaming records, exact resume."""
+"""Sweeps: identical numbers from every executor, streaming records, exact resume.
+
+Source of the expected numbers: the uninterrupted in-process run of the same grid (fixture
+``reference``); every other executor or resumed run must reproduce it bit for bit (JSON
+floats round-trip exactly, Python's float repr).
+"""
 
 from __future__ import annotations
 
