@@ -193,7 +193,14 @@ def test_npz_content_is_validated(tmp_path):
 def test_object_arrays_refused(tmp_path):
     obj = np.empty(2, dtype=object)
     obj[0], obj[1] = np.ones(2), "two"
-    np.save(tmp_path / "o.npy", obj, allow_pickle=True)
+    # An object-dtype .npy is a numpy header followed by a pickle stream (numpy's format
+    # spec, numpy.lib.format); written by hand so the suite never enables pickling itself.
+    import pickle
+
+    with open(tmp_path / "o.npy", "wb") as handle:
+        np.lib.format.write_array_header_1_0(
+            handle, {"descr": "|O", "fortran_order": False, "shape": obj.shape})
+        handle.write(pickle.dumps(obj.tolist()))
     with pytest.raises(ThermoseedError, match="(?i)object|pickle"):
         load_training_data(tmp_path / "o.npy")
     np.savez(tmp_path / "o.npz", states=obj)
