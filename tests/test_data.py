@@ -200,7 +200,7 @@ def test_object_arrays_refused(tmp_path):
     with open(tmp_path / "o.npy", "wb") as handle:
         np.lib.format.write_array_header_1_0(
             handle, {"descr": "|O", "fortran_order": False, "shape": obj.shape})
-        handle.write(pickle.dumps(obj.tolist()))
+        handle.write(pickle.dumps(obj))
     with pytest.raises(ThermoseedError, match="(?i)object|pickle"):
         load_training_data(tmp_path / "o.npy")
     np.savez(tmp_path / "o.npz", states=obj)
