@@ -150,6 +150,54 @@ def _cmd_inspect(args) -> int:
     return 0
 
 
+def _load_labelled(path):
+    """A run folder's ``data.npz`` (``states``/``density``, ``labels`` and their ``test_``
+    counterparts) as classifier data."""
+    import numpy as np
+
+    from pretrain.files import load_npz
+
+    from .plateau import LabelledData
+
+    arrays = load_npz(path, what="data file")
+    key = "states" if "states" in arrays else "density"
+    needed = [key, "labels", f"test_{key}", "test_labels"]
+    missing = [k for k in needed if k not in arrays]
+    if missing:
+        raise ThermoseedError(
+            f"{path} lacks {missing}; labelled data needs {needed} (a run folder's data.npz)")
+    data = LabelledData(*(arrays[k] for k in needed))
+    return data.check(int(round(np.log2(np.shape(data.train_states)[1]))))
+
+
+def _cmd_sweep(args) -> int:
+    from .sweep import make_grid, run_sweep
+
+    data = None
+    if args.data:
+        labelled = _load_labelled(args.data)
+        data = {labelled.n_qubits: labelled}
+    jobs = make_grid(args.sizes, args.strategies, range(args.seed, args.seed + args.seeds),
+                     costs=args.costs, template=args.template, depths=args.depths)
+    result = run_sweep(jobs, args.out, data=data, workers=args.workers,
+                       scheduler=args.scheduler, progress=not args.quiet)
+    print(_json({"results": str(args.out), "jobs": len(jobs), "ran": result.ran,
+                 "skipped": result.skipped}))
+    return 0
+
+
+def _cmd_report(args) -> int:
+    from .report import write_report
+    from .sweep import read_records
+
+    records = read_records(args.results)
+    if not records:
+        raise ThermoseedError(f"{args.results} holds no sweep records (or does not exist)")
+    path = write_report(records, args.out, title=args.title, target=args.target)
+    print(_json({"report": str(path)}))
+    return 0
+
+
 def _cmd_run(args) -> int:
     from .pipeline import run_recipe
     from .recipe_config import load_recipe
@@ -166,7 +214,7 @@ def _cmd_run(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The full argument parser (subcommands: fit, compile, warm-start, run, inspect)."""
+    """The full argument parser (fit, compile, warm-start, sweep, report, run, inspect)."""
     parser = argparse.ArgumentParser(
         prog="thermoseed",
         description="Generative pre-training for variational quantum circuits: fit a Gibbs "
@@ -237,6 +285,47 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--head-layers", type=_positive_int, default=1)
     _add_common(p)
     p.set_defaults(handler=_cmd_warm_start)
+
+    p = sub.add_parser(
+        "sweep", help="gradient-variance sweep over qubit counts and initialisations",
+        description="Gradient of a cost at initialisation for every (n, strategy, cost, seed); "
+                    "one JSON line per job in the results file, rerun to resume.",
+        epilog="examples:\n  thermoseed sweep --sizes 2,4,6 --strategies uniform,identity_blocks "
+               "--seeds 20 --out results.jsonl\n"
+               "  thermoseed sweep --sizes 4 --strategies pretrained,uniform --costs classifier "
+               "--data thermoseed-runs/magnet-phase/data.npz --out cls.jsonl",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--out", required=True, help="results file (.jsonl), appended and resumed")
+    p.add_argument("--sizes", type=_int_list, required=True, help="qubit counts, e.g. 2,4,6")
+    p.add_argument("--strategies", type=_word_list,
+                   default=["uniform", "small_angle", "identity_blocks"],
+                   help="uniform, small_angle, identity_blocks, pretrained, "
+                        "pretrained_perturbed (default: the first three)")
+    p.add_argument("--costs", type=_word_list, default=["local", "global"],
+                   help="local, global, classifier (default local,global)")
+    p.add_argument("--seeds", type=_positive_int, default=20, help="seeds per point")
+    p.add_argument("--seed", type=int, default=0, help="first seed")
+    p.add_argument("--depths", type=_int_list, help="layers per block (default: n)")
+    p.add_argument("--template", choices=["soft", "strong", "entangler", "ladder"],
+                   default="soft")
+    p.add_argument("--data", help="labelled data (a run folder's data.npz) for the "
+                                  "classifier cost and pretrained strategies")
+    p.add_argument("--workers", type=_positive_int, help="local processes (default all cores)")
+    p.add_argument("--scheduler", help="dask scheduler address (needs the 'cluster' extra)")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_sweep)
+
+    p = sub.add_parser(
+        "report", help="render plots and a Markdown report from sweep results",
+        epilog="example: thermoseed report results.jsonl --out plateau-report",
+        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("results", help="results file from 'thermoseed sweep' or a run folder")
+    p.add_argument("--out", required=True, help="folder for report.md and PNGs")
+    p.add_argument("--title", default="Plateau comparison")
+    p.add_argument("--target", type=_nonneg_float, default=0.9,
+                   help="held-out accuracy for steps-to-target (default 0.9)")
+    _add_common(p)
+    p.set_defaults(handler=_cmd_report)
 
     p = sub.add_parser(
         "run", help="run a recipe end to end (fit, compile, warm start, compare, report)",

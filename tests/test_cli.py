@@ -146,7 +146,27 @@ def test_fit_compile_warm_start_inspect_commands(tmp_path, capsys):
     assert shown["header"]["kind"] == "gibbs-model" and "coef" in shown["arrays"]
 
 
+def test_sweep_and_report_commands(tiny_runs, tmp_path, capsys):
+    base, _ = tiny_runs
+    out = tmp_path / "r.jsonl"
+    argv = ["sweep", "--sizes", "2,3", "--strategies", "uniform,identity_blocks", "--seeds", "4",
+            "--costs", "local", "--workers", "1", "--out", str(out), "--quiet"]
+    assert main(argv) == 0
+    assert json.loads(capsys.readouterr().out)["ran"] == 2 * 2 * 4
+    assert main(argv) == 0  # rerun resumes: nothing left to run
+    assert json.loads(capsys.readouterr().out) == {"results": str(out), "jobs": 16, "ran": 0,
+                                                    "skipped": 16}
+    assert main(["sweep", "--sizes", "2", "--strategies", "uniform", "--costs", "classifier",
+                 "--seeds", "2", "--workers", "1", "--data", str(base / "a" / "data.npz"),
+                 "--out", str(tmp_path / "c.jsonl"), "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["report", str(out), "--out", str(tmp_path / "rep"), "--quiet"]) == 0
+    assert (tmp_path / "rep" / "decay.png").stat().st_size > 0
+    assert "slope" in (tmp_path / "rep" / "report.md").read_text()
+
+
 @pytest.mark.parametrize("argv, needle", [
+    (["report", "missing.jsonl", "--out", "rep"], "holds no sweep records"),
     (["fit", "missing.npz", "--out", "m.npz"], "does not exist"),
     (["inspect", "missing.npz"], "does not exist"),
     (["run", "no-such-recipe"], "neither a built-in"),
@@ -198,7 +218,7 @@ def test_builtin_recipes_load():
 
 
 def test_help_mentions_an_example_for_every_command(capsys):
-    for command in ("fit", "compile", "warm-start", "run", "inspect"):
+    for command in ("fit", "compile", "warm-start", "sweep", "report", "run", "inspect"):
         with pytest.raises(SystemExit) as info:
             main([command, "--help"])
         assert info.value.code == 0
