@@ -68,10 +68,10 @@ class DownstreamCircuit:
 
     def split(self, params):
         """Flat vector -> (encoder params, head params) in their own shapes."""
-        if tuple(qml_shape(params)) != (self.n_params,):
+        if tuple(np.shape(params)) != (self.n_params,):
             raise ThermoseedError(
                 f"expected a flat parameter vector of length {self.n_params}, "
-                f"got shape {tuple(qml_shape(params))}"
+                f"got shape {tuple(np.shape(params))}"
             )
         k = self.encoder.n_params
         return (anp.reshape(params[:k], self.encoder.shape),
@@ -142,10 +142,6 @@ class DownstreamCircuit:
             return qml.probs(wires=list(self.readout))
 
         return circuit
-
-
-def qml_shape(x):
-    return np.shape(x) if not hasattr(x, "_value") else np.shape(x._value)
 
 
 def _labels(labels, count: int, n_classes: int) -> np.ndarray:
