@@ -6,23 +6,9 @@ wire 0 as the leftmost factor) so that reference Hamiltonians do not go through 
 
 from __future__ import annotations
 
-from functools import reduce
-
 import numpy as np
 import pytest
-
-# Source: textbook Pauli matrices (e.g. Nielsen & Chuang, section 2.1.3).
-PAULI_2x2 = {
-    "I": np.eye(2, dtype=complex),
-    "X": np.array([[0, 1], [1, 0]], dtype=complex),
-    "Y": np.array([[0, -1j], [1j, 0]], dtype=complex),
-    "Z": np.array([[1, 0], [0, -1]], dtype=complex),
-}
-
-
-def kron_pauli(label: str) -> np.ndarray:
-    """Dense matrix of a Pauli label; letter 0 is the leftmost Kronecker factor (MSB)."""
-    return reduce(np.kron, [PAULI_2x2[ch] for ch in label])
+from numerics import PAULI_2x2, kron_pauli  # noqa: F401 - re-exported via helpers
 
 
 def reference_hamiltonian(coeffs, labels) -> np.ndarray:

@@ -12,26 +12,15 @@ import numpy as np
 import pennylane as qml
 import pytest
 import scipy.linalg
+from numerics import PAULI_2x2, kron_pauli
 
 from pretrain.data import check_density_matrix, load_training_data
 from pretrain.errors import ThermoseedError
 from recipes import magnet_phase, neighbour_xxz, probe_drift
 
-# Textbook Pauli matrices (Nielsen & Chuang, section 2.1.3).
-PAULI = {
-    "I": np.eye(2, dtype=complex),
-    "X": np.array([[0, 1], [1, 0]], dtype=complex),
-    "Y": np.array([[0, -1j], [1j, 0]], dtype=complex),
-    "Z": np.array([[1, 0], [0, -1]], dtype=complex),
-}
-
-
-def kron_label(label: str) -> np.ndarray:
-    return reduce(np.kron, [PAULI[ch] for ch in label])
-
 
 def on_wires(n: int, letters: dict[int, str]) -> np.ndarray:
-    return kron_label("".join(letters.get(q, "I") for q in range(n)))
+    return kron_pauli("".join(letters.get(q, "I") for q in range(n)))
 
 
 def tfim_reference(n: int, g: float, j: float = 1.0) -> np.ndarray:
@@ -102,7 +91,7 @@ def test_tfim_ground_state_is_z2_symmetric_even_deep_in_the_ordered_phase():
     # At g = 0.05, n = 6 the two lowest levels (one per sector of X^n) are ~3e-8 apart.
     n = 6
     _, psi = magnet_phase.ground_state(n, 0.05)
-    parity = kron_label("X" * n)
+    parity = kron_pauli("X" * n)
     assert np.vdot(psi, parity @ psi).real == pytest.approx(1.0, abs=1e-12)
     assert np.all(psi >= -1e-12) and psi.sum() > 0  # Perron-Frobenius sign convention
     cat = np.zeros(2**n)
@@ -227,7 +216,7 @@ def test_noiseless_probe_is_ghz_with_x_parity_cos_phi(phi):
     rho = probe_drift.noisy_probe(n, phi, 0.0, 0.0)
     psi = ghz_reference(n, phi)
     assert np.vdot(psi, rho @ psi).real == pytest.approx(1.0, abs=1e-12)  # fidelity 1
-    x_all = kron_label("X" * n)
+    x_all = kron_pauli("X" * n)
     # Closed form from memory: <X^{(x)n}> = cos(phi) for this GHZ state. Confirmed here
     # by direct computation on the hand-built state vector, then checked on rho.
     direct = np.vdot(psi, x_all @ psi).real
@@ -272,7 +261,7 @@ def test_dephasing_shrinks_ghz_coherence_by_one_minus_two_p_to_the_n(n, p):
     ideal = np.outer(psi, psi.conj())
     brute = np.zeros_like(ideal)
     for bits in range(2**n):
-        ops = [np.sqrt(p) * PAULI["Z"] if (bits >> k) & 1 else np.sqrt(1 - p) * PAULI["I"]
+        ops = [np.sqrt(p) * PAULI_2x2["Z"] if (bits >> k) & 1 else np.sqrt(1 - p) * PAULI_2x2["I"]
                for k in range(n)]
         k_op = reduce(np.kron, ops)
         brute += k_op @ ideal @ k_op.conj().T
