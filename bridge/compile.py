@@ -286,7 +286,7 @@ def compile_latent(
             rows = ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), lat.basis)
             return neg_entropy + anp.dot(q, _energies(rows, h)) + log_z
 
-        extra, floor = 0, -float(np.log(lat.captured))
+        extra, floor = 0, max(0.0, -float(np.log(lat.captured)))
     else:
 
         def objective(x):
