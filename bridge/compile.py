@@ -347,9 +347,6 @@ def compile_purified(
 def _data_rho(data):
     if data is None:
         return None
-    from pretrain.data import as_training_data
+    from pretrain.data import as_training_data, square_array_kind
 
-    # a square 2-D array is one density matrix (as in VisibleGibbsModel.fit); a non-square
-    # 2-D array is a batch of state vectors
-    square = np.ndim(data) == 2 and np.shape(data)[0] == np.shape(data)[1]
-    return as_training_data(data, kind="density" if square else None).rho
+    return as_training_data(data, kind=square_array_kind(data)).rho

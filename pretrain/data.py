@@ -200,6 +200,18 @@ def from_qfunc(qfunc: Callable[[], None], n_qubits: int) -> TrainingData:
     return from_density_matrices(rho)
 
 
+def square_array_kind(source) -> str | None:
+    """Resolve the square 2-D ambiguity for callers that accept both forms: a Hermitian
+    square array (within ``HERMITIAN_ATOL``) is one density matrix, any other square array a
+    batch of state vectors; None for everything else (``as_training_data`` decides)."""
+    if not isinstance(source, np.ndarray) or source.ndim != 2 or \
+            source.shape[0] != source.shape[1] or not np.issubdtype(source.dtype, np.number):
+        return None
+    hermitian = np.all(np.isfinite(source)) and \
+        np.abs(source - source.conj().T).max() <= HERMITIAN_ATOL
+    return "density" if hermitian else "states"
+
+
 def as_training_data(
     source, *, kind: str | None = None, weights=None, labels=None, n_qubits: int | None = None,
     renormalize: bool = False,

@@ -14,7 +14,13 @@ from pathlib import Path
 import numpy as np
 
 from ._base import ParamsMixin, check_is_fitted
-from .data import TrainingData, as_training_data, check_density_matrix, check_qubits
+from .data import (
+    TrainingData,
+    as_training_data,
+    check_density_matrix,
+    check_qubits,
+    square_array_kind,
+)
 from .engines import make_engine
 from .errors import DivergenceWarning, ThermoseedError
 from .fit import SOLVERS, Callback, minimize
@@ -122,11 +128,15 @@ class VisibleGibbsModel(ParamsMixin):
         return loss, moments - ev.moments + self.l2 * theta
 
     def fit(self, data, *, callback: Callback | None = None, kind: str | None = None):
-        """Fit to training data (anything ``as_training_data`` accepts) and return self."""
+        """Fit to training data (anything ``as_training_data`` accepts) and return self.
+
+        A square 2-D array is read as one density matrix when Hermitian, else as a batch of
+        state vectors (``square_array_kind``); pass ``kind`` to say which explicitly.
+        """
         self._check_settings()
         terms = self._term_set()
-        if isinstance(data, np.ndarray) and data.ndim == 2 and kind is None:
-            kind = "density" if data.shape[0] == data.shape[1] else None
+        if kind is None:
+            kind = square_array_kind(data)
         td: TrainingData = as_training_data(data, kind=kind)
         check_qubits(td.n_qubits, terms)
         self._engine = make_engine(self.engine, terms)

@@ -332,3 +332,17 @@ def test_target_moments_match_qutip(n, helpers):
     assert isinstance(td, TrainingData)
     # Source: QuTiP entropy_vn (natural log by default).
     assert td.entropy() == pytest.approx(qutip.entropy_vn(q_rho), abs=1e-10)
+
+
+def test_square_array_kind_reads_hermitian_as_density_and_others_as_states():
+    # Source: definition — a density matrix is Hermitian; random complex state batches are not.
+    from pretrain.data import square_array_kind
+
+    rng = np.random.default_rng(7)
+    batch = rng.normal(size=(4, 4)) + 1j * rng.normal(size=(4, 4))
+    batch /= np.linalg.norm(batch, axis=1)[:, None]
+    assert square_array_kind(batch) == "states"
+    rho = batch.T @ batch.conj() / 4
+    assert square_array_kind(rho) == "density"
+    assert square_array_kind(batch[:2]) is None  # not square: no ambiguity to resolve
+    assert square_array_kind([[1, 0], [0, 0]]) is None  # not an ndarray: caller decides
