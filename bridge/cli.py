@@ -70,6 +70,16 @@ def _add_common(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--debug", action="store_true", help="show Python tracebacks")
 
 
+def _subcommand(sub, name: str, handler, *, help: str, epilog: str,
+                description: str | None = None) -> argparse.ArgumentParser:
+    """One subparser: summary, example epilog, the common flags and its handler."""
+    parser = sub.add_parser(name, help=help, description=description or help, epilog=epilog,
+                            formatter_class=argparse.RawDescriptionHelpFormatter)
+    _add_common(parser)
+    parser.set_defaults(handler=handler)
+    return parser
+
+
 def _say(args, message: str) -> None:
     if not args.quiet:
         print(message, file=sys.stderr)
@@ -223,13 +233,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    p = sub.add_parser(
-        "fit", help="fit a Gibbs model to a data file (.npy/.npz)",
+    p = _subcommand(
+        sub, "fit", _cmd_fit, help="fit a Gibbs model to a data file (.npy/.npz)",
         description="Fit a Gibbs model exp(-H)/Z over a Pauli term set by minimising the "
                     "relative entropy S(rho||sigma) to the training states.",
         epilog="example: thermoseed fit states.npz --graph ring --fields XZ "
-               "--couplings ZZ,XX --l2 1e-3 --out model.npz",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+               "--couplings ZZ,XX --l2 1e-3 --out model.npz")
     p.add_argument("data", help=".npy/.npz training data (README schema)")
     p.add_argument("--out", required=True, help="model file to write (.npz)")
     p.add_argument("--kind", choices=["states", "density"], help="for ambiguous .npy arrays")
@@ -246,16 +255,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--max-iter", type=_positive_int, default=500)
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--checkpoint", help="checkpoint file: saved during the fit, resumed from")
-    _add_common(p)
-    p.set_defaults(handler=_cmd_fit)
 
-    p = sub.add_parser(
-        "compile", help="compile a fitted model into a parameterised circuit",
+    p = _subcommand(
+        sub, "compile", _cmd_compile, help="compile a fitted model into a parameterised circuit",
         description="Latent-form compile: find circuit parameters phi with "
                     "U(phi) diag(q) U(phi)^dag close to the fitted Gibbs state.",
         epilog="example: thermoseed compile model.npz --ansatz strong --layers 8 "
-               "--out compile.npz",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+               "--out compile.npz")
     p.add_argument("model", help="model file from 'thermoseed fit'")
     p.add_argument("--out", required=True, help="compile file to write (.npz)")
     p.add_argument("--ansatz", choices=["strong", "entangler", "ladder", "soft"],
@@ -269,32 +275,28 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--max-iter", type=_positive_int, default=300)
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--data", help="training data, for the report")
-    _add_common(p)
-    p.set_defaults(handler=_cmd_compile)
 
-    p = sub.add_parser(
-        "warm-start", help="write warm-start parameters for a downstream circuit",
+    p = _subcommand(
+        sub, "warm-start", _cmd_warm_start,
+        help="write warm-start parameters for a downstream circuit",
         description="Encoder parameters from a compile plus an identity head, as one "
                     "parameter array in an .npz (key 'params').",
         epilog="example: thermoseed warm-start compile.npz --head soft --head-layers 1 "
-               "--out params.npz",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+               "--out params.npz")
     p.add_argument("compile", help="compile file")
     p.add_argument("--out", required=True, help="parameter file to write (.npz)")
     p.add_argument("--head", choices=["soft"], help="identity head template (omit: no head)")
     p.add_argument("--head-layers", type=_positive_int, default=1)
-    _add_common(p)
-    p.set_defaults(handler=_cmd_warm_start)
 
-    p = sub.add_parser(
-        "sweep", help="gradient-variance sweep over qubit counts and initialisations",
+    p = _subcommand(
+        sub, "sweep", _cmd_sweep,
+        help="gradient-variance sweep over qubit counts and initialisations",
         description="Gradient of a cost at initialisation for every (n, strategy, cost, seed); "
                     "one JSON line per job in the results file, rerun to resume.",
         epilog="examples:\n  thermoseed sweep --sizes 2,4,6 --strategies uniform,identity_blocks "
                "--seeds 20 --out results.jsonl\n"
                "  thermoseed sweep --sizes 4 --strategies pretrained,uniform --costs classifier "
-               "--data thermoseed-runs/magnet-phase/data.npz --out cls.jsonl",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+               "--data thermoseed-runs/magnet-phase/data.npz --out cls.jsonl")
     p.add_argument("--out", required=True, help="results file (.jsonl), appended and resumed")
     p.add_argument("--sizes", type=_int_list, required=True, help="qubit counts, e.g. 2,4,6")
     p.add_argument("--strategies", type=_word_list,
@@ -312,44 +314,34 @@ def build_parser() -> argparse.ArgumentParser:
                                   "classifier cost and pretrained strategies")
     p.add_argument("--workers", type=_positive_int, help="local processes (default all cores)")
     p.add_argument("--scheduler", help="dask scheduler address (needs the 'cluster' extra)")
-    _add_common(p)
-    p.set_defaults(handler=_cmd_sweep)
 
-    p = sub.add_parser(
-        "report", help="render plots and a Markdown report from sweep results",
-        epilog="example: thermoseed report results.jsonl --out plateau-report",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = _subcommand(
+        sub, "report", _cmd_report, help="render plots and a Markdown report from sweep results",
+        epilog="example: thermoseed report results.jsonl --out plateau-report")
     p.add_argument("results", help="results file from 'thermoseed sweep' or a run folder")
     p.add_argument("--out", required=True, help="folder for report.md and PNGs")
     p.add_argument("--title", default="Plateau comparison")
     p.add_argument("--target", type=_nonneg_float, default=0.9,
                    help="held-out accuracy for steps-to-target (default 0.9)")
-    _add_common(p)
-    p.set_defaults(handler=_cmd_report)
 
-    p = sub.add_parser(
-        "run", help="run a recipe end to end (fit, compile, warm start, compare, report)",
+    p = _subcommand(
+        sub, "run", _cmd_run,
+        help="run a recipe end to end (fit, compile, warm start, compare, report)",
         description="Run a TOML recipe: built-in names are magnet-phase, probe-drift, "
                     "neighbour-xxz; or give a path to your own .toml.",
         epilog="examples:\n  thermoseed run magnet-phase\n"
-               "  thermoseed run my_recipe.toml --qubits 6 --out runs/six",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+               "  thermoseed run my_recipe.toml --qubits 6 --out runs/six")
     p.add_argument("recipe", help="built-in recipe name or path to a .toml file")
     p.add_argument("--out", help="run folder (default thermoseed-runs/<name>)")
     p.add_argument("--qubits", type=_positive_int, help="override the recipe's qubit count")
     p.add_argument("--seed", type=int, help="override the recipe's seed")
     p.add_argument("--quick", action="store_true", help="smallest settings (smoke run)")
     p.add_argument("--workers", type=int, default=0, help="sweep worker processes (0 = all)")
-    _add_common(p)
-    p.set_defaults(handler=_cmd_run)
 
-    p = sub.add_parser(
-        "inspect", help="show what is inside a model, compile or result file",
-        epilog="example: thermoseed inspect model.npz",
-        formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = _subcommand(
+        sub, "inspect", _cmd_inspect, help="show what is inside a model, compile or result file",
+        epilog="example: thermoseed inspect model.npz")
     p.add_argument("file", )
-    _add_common(p)
-    p.set_defaults(handler=_cmd_inspect)
     return parser
 
 

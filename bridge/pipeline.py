@@ -184,11 +184,11 @@ def run_classification(recipe: dict, out: Path, run: dict, progress: bool, worke
     run["files"]["results"] = "results.jsonl"
     run["sweep"] = {"jobs": len(jobs), "ran": result.ran, "skipped": result.skipped}
     with _Stage(run, out, "report"):
-        write_report(result.records, out, title="Plateau comparison in detail",
-                     target=train["target_accuracy"], seed=seed)
         from .findings import classification_findings
 
-        _prepend(out / "report.md", classification_findings(recipe, run, result.records))
+        write_report(result.records, out, title="Plateau comparison in detail",
+                     target=train["target_accuracy"], seed=seed,
+                     preamble=classification_findings(recipe, run, result.records))
     run["files"]["report"] = "report.md"
 
 
@@ -222,11 +222,6 @@ def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
         atomic_write_bytes(out / "report.md", text.encode("utf-8"))
     run["files"].update({"energies": "energies.json", "plot": "energies.png",
                          "report": "report.md"})
-
-
-def _prepend(path: Path, text: str) -> None:
-    body = path.read_text(encoding="utf-8")
-    atomic_write_bytes(path, (text + "\n" + body).encode("utf-8"))
 
 
 def run_recipe(recipe: dict, out, *, progress: bool = True, workers: int = 0) -> dict[str, Any]:

@@ -171,16 +171,17 @@ def curve_table(summaries: Sequence[CurveSummary]) -> str:
 
 
 def write_report(records: Sequence[dict], folder, *, title: str = "Plateau comparison",
-                 target: float = 0.9, n_boot: int = 1000, seed: int = 0) -> Path:
+                 target: float = 0.9, n_boot: int = 1000, seed: int = 0,
+                 preamble: str = "") -> Path:
     """Plots, tables and ``report.md`` in ``folder`` from sweep records; returns the
     report path. ``target``: held-out accuracy for steps-to-target; ``n_boot``/``seed``:
-    the bootstrap of the decay-rate intervals."""
+    the bootstrap of the decay-rate intervals; ``preamble``: Markdown placed first."""
     folder = Path(folder)
     probes = probe_results(records)
     curves = train_curves(records)
     if not probes and not curves:
         raise ThermoseedError("the records hold neither gradient probes nor training curves")
-    parts = [f"# {title}", "", LIMITS, ""]
+    parts = ([preamble] if preamble else []) + [f"# {title}", "", LIMITS, ""]
     if probes:
         by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed)
                    for s in ("mean_var", "max_var")}

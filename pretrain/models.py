@@ -24,7 +24,7 @@ from .data import (
 from .engines import make_engine
 from .errors import DivergenceWarning, ThermoseedError
 from .fit import SOLVERS, Callback, minimize
-from .linalg import von_neumann_entropy
+from .linalg import entropy_of_spectrum, von_neumann_entropy
 from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
 
 #: |theta| entries above this mean weights e^{-|theta|} below ~1e-11: the fit is chasing a
@@ -141,8 +141,9 @@ class VisibleGibbsModel(ParamsMixin):
         check_qubits(td.n_qubits, terms)
         self._engine = make_engine(self.engine, terms)
         moments = td.moments(terms)
-        entropy = td.entropy()
-        rank_deficient = np.linalg.eigvalsh(td.rho).min() < RANK_FLOOR
+        data_vals, data_vecs = np.linalg.eigh(td.rho)  # one decomposition: entropy + rank
+        entropy = entropy_of_spectrum(data_vals)
+        rank_deficient = data_vals.min() < RANK_FLOOR
         rng = np.random.default_rng(self.seed)
         theta0 = self.init_scale * rng.standard_normal(len(terms))
         result = minimize(
@@ -168,7 +169,7 @@ class VisibleGibbsModel(ParamsMixin):
         largest = float(np.abs(self.coef_).max())
         suspect = False
         if rank_deficient and self.l2 == 0:
-            vals, vecs = np.linalg.eigh(td.rho)
+            vals, vecs = data_vals, data_vecs
             null = vals < RANK_FLOOR
             sigma = self._engine.evaluate(self.coef_, want_state=True).state
             model_null = np.einsum("ai,ab,bi->", vecs[:, null].conj(), sigma, vecs[:, null]).real
