@@ -1,7 +1,12 @@
 """thermoseed bridge: from a fitted Gibbs model to a warm-started PennyLane circuit.
 
-Layering (each module imports at module level only from those before it, and from
-pretrain/): unitaries, ansatz, compile, compile_io, seed, discriminative, eigensolver,
-plateau_grad, plateau, plateau_stats, sweep, report, findings, neighbour, recipe_config,
-pipeline, cli, __main__.
+The PennyLane library proper (template registry, ansatz, compile, warm start, classifier
+circuit, eigensolver) and, on top of it, the plateau lab in ``bridge.plateau`` (strategies,
+gradient probes, statistics, sweeps, reports). It imports ``thermoseed.pretrain`` and never
+``thermoseed.recipes``.
+
+Layer order, lowest first (a module imports only modules before it):
+    templates -> ansatz -> compile -> compile_record -> warm_start -> classifier ->
+    eigensolver -> plateau.gradients -> plateau.probes -> plateau.stats -> plateau.sweep ->
+    plateau.report
 """

@@ -23,9 +23,8 @@ from functools import lru_cache
 import numpy as np
 import pennylane as qml
 
-from pretrain.errors import ThermoseedError
-
-from .unitaries import template_apply
+from thermoseed.bridge.templates import template_apply
+from thermoseed.pretrain.errors import ThermoseedError
 
 
 def _ladder(params, wires):

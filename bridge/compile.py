@@ -24,12 +24,11 @@ import numpy as np
 from autograd.extend import defvjp, primitive
 from tqdm.auto import tqdm
 
-from pretrain.diagnostics import fidelity, relative_entropy, trace_distance
-from pretrain.errors import ConvergenceWarning, ThermoseedError
-from pretrain.fit import minimize
-from pretrain.linalg import ENTROPY_FLOOR, entropy_of_spectrum, log_sum_exp_neg
-
-from .ansatz import Ansatz, ansatz_columns
+from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
+from thermoseed.pretrain.diagnostics import fidelity, relative_entropy, trace_distance
+from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
+from thermoseed.pretrain.linalg import ENTROPY_FLOOR, entropy_of_spectrum, log_sum_exp_neg
+from thermoseed.pretrain.optim import minimize
 
 LATENT_KINDS = ("spectrum", "product")
 FORMS = ("latent", "purified")
@@ -137,11 +136,6 @@ class CompileResult:
         if self.form != "latent":
             raise ThermoseedError("the encoder orientation exists for the latent form only")
         return lambda wires=None: self.ansatz.adjoint(self.params, wires)
-
-    def save(self, path):
-        from .compile_io import save_compile
-
-        return save_compile(self, path)
 
 
 # ------------------------------------------------------------------------------ objectives
@@ -347,6 +341,6 @@ def compile_purified(
 def _data_rho(data):
     if data is None:
         return None
-    from pretrain.data import as_training_data, square_array_kind
+    from thermoseed.pretrain.data import as_training_data, square_array_kind
 
     return as_training_data(data, kind=square_array_kind(data)).rho

@@ -15,10 +15,9 @@ import autograd.numpy as anp
 import numpy as np
 from tqdm.auto import tqdm
 
-from pretrain.errors import ThermoseedError
-from pretrain.fit import adam
-
-from .ansatz import Ansatz, ansatz_columns
+from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.optim import adam
 
 
 class EnergyRun(NamedTuple):

@@ -1,7 +1,10 @@
 """thermoseed pre-training: fit Gibbs models (quantum Boltzmann machines) to quantum data.
 
-Layering (each module imports only from those above it in this list): errors, _base, files,
-linalg, paulis, data, engines, fit, models, diagnostics, io. Nothing here imports bridge/.
+Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
+
+Layer order, lowest first (a module imports only modules before it):
+    errors -> _base -> files -> linalg -> paulis -> data -> engines -> optim -> models ->
+    diagnostics
 """
 
 from .data import (
@@ -15,10 +18,10 @@ from .data import (
 from .diagnostics import fidelity, moment_residuals, relative_entropy, trace_distance
 from .engines import DenseEngine, GibbsEngine, GibbsEvaluation, make_engine
 from .errors import ConvergenceWarning, DivergenceWarning, NotFittedError, ThermoseedError
-from .fit import FitResult, adam, minimize
-from .io import load_model, read_record, save_model, write_record
+from .files import read_record, write_record
 from .linalg import von_neumann_entropy
-from .models import VisibleGibbsModel
+from .models import VisibleGibbsModel, load_model, save_model
+from .optim import FitResult, adam, minimize
 from .paulis import (
     PauliExpansion,
     PauliString,

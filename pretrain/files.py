@@ -1,13 +1,22 @@
-"""Atomic writes and pickle-free array loading: the only file primitives thermoseed uses."""
+"""File primitives: atomic writes, pickle-free array loading, versioned record files.
+
+A record is a JSON header plus named arrays in one ``.npz`` (no pickle). The header is stored
+as a unicode array under ``__header__`` and holds ``format``, ``version``, ``kind`` and the
+kind's own fields. Writes are atomic (temp file + rename). Every file thermoseed writes is a
+record of some kind; the kinds live beside the objects they store.
+"""
 
 from __future__ import annotations
 
+import datetime as _dt
 import io
+import json
 import os
 import tempfile
 import tokenize
 import zipfile
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -64,3 +73,53 @@ def load_npz(path, *, what: str = "file") -> dict[str, np.ndarray]:
         raise
     except CORRUPT_FILE_ERRORS as err:
         raise ThermoseedError(f"{what} {str(p)!r} is corrupt or not an .npz file: {err}") from err
+
+
+FORMAT = "thermoseed-record"
+FORMAT_VERSION = 1
+_HEADER_KEY = "__header__"
+
+
+def write_record(path, kind: str, header: dict[str, Any], arrays: dict[str, np.ndarray]) -> Path:
+    """Atomically write a record of ``kind`` with a JSON-able ``header`` and arrays."""
+    full = {"format": FORMAT, "version": FORMAT_VERSION, "kind": kind,
+            "written": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")}
+    full.update(header)
+    try:
+        text = json.dumps(full, sort_keys=True, allow_nan=True)
+    except TypeError as err:
+        raise ThermoseedError(f"record header is not JSON-serialisable: {err}") from err
+    if _HEADER_KEY in arrays:
+        raise ThermoseedError(f"array name {_HEADER_KEY!r} is reserved")
+    return atomic_save_npz(path, {_HEADER_KEY: np.array(text), **arrays})
+
+
+def read_record(path, kind: str | None = None) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
+    """Read a record; check format, version and (if given) kind. Returns (header, arrays)."""
+    arrays = load_npz(path, what="record file")
+    if _HEADER_KEY not in arrays:
+        raise ThermoseedError(f"{str(path)!r} is not a thermoseed record (no header)")
+    try:
+        header = json.loads(str(arrays.pop(_HEADER_KEY)))
+    except (json.JSONDecodeError, ValueError) as err:
+        raise ThermoseedError(f"{str(path)!r} has a corrupt header: {err}") from err
+    if not isinstance(header, dict) or header.get("format") != FORMAT:
+        raise ThermoseedError(f"{str(path)!r} is not a thermoseed record file")
+    version = header.get("version")
+    if not isinstance(version, int) or version > FORMAT_VERSION:
+        raise ThermoseedError(
+            f"{str(path)!r} has format version {version!r}, newer than this thermoseed reads "
+            f"({FORMAT_VERSION}); upgrade thermoseed"
+        )
+    if kind is not None and header.get("kind") != kind:
+        raise ThermoseedError(
+            f"{str(path)!r} holds a {header.get('kind')!r} record, not a {kind!r} one"
+        )
+    return header, arrays
+
+
+def json_scalar(value):
+    """A numpy scalar as the plain Python value JSON can hold; anything else unchanged."""
+    if isinstance(value, np.generic):
+        return value.item()
+    return value

@@ -23,8 +23,9 @@ from .data import (
 )
 from .engines import make_engine
 from .errors import DivergenceWarning, ThermoseedError
-from .fit import SOLVERS, Callback, minimize
+from .files import json_scalar, read_record, write_record
 from .linalg import entropy_of_spectrum, von_neumann_entropy
+from .optim import SOLVERS, Callback, minimize
 from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
 
 #: |theta| entries above this mean weights e^{-|theta|} below ~1e-11: the fit is chasing a
@@ -235,7 +236,53 @@ class VisibleGibbsModel(ParamsMixin):
         return -von_neumann_entropy(r) + float(self.coef_ @ m) + self.log_partition()
 
     def save(self, path) -> Path:
-        """Write a versioned model file (see ``pretrain.io``)."""
-        from .io import save_model
-
+        """Write a versioned model file (``save_model``)."""
         return save_model(self, path)
+
+
+MODEL_KIND = "gibbs-model"
+
+
+def save_model(model, path) -> Path:
+    """Save a fitted ``VisibleGibbsModel`` (term labels, coefficients, settings, metrics)."""
+    check_is_fitted(model, "coef_")
+    params = {k: v for k, v in model.get_params().items() if k != "terms"}
+    metrics = {
+        name: json_scalar(getattr(model, attr))
+        for name, attr in [("loss", "loss_"), ("grad_norm", "grad_norm_"), ("n_iter", "n_iter_"),
+                           ("converged", "converged_"), ("data_entropy", "data_entropy_")]
+        if hasattr(model, attr)
+    }
+    header = {"model": type(model).__name__, "n_qubits": model.terms_.n_qubits,
+              "terms": model.terms_.labels, "params": params, "metrics": metrics}
+    arrays = {"coef": np.asarray(model.coef_, float)}
+    if hasattr(model, "target_moments_"):
+        arrays["target_moments"] = np.asarray(model.target_moments_, float)
+    if hasattr(model, "history_"):
+        arrays["history_loss"] = np.asarray(model.history_["loss"], float)
+        arrays["history_grad_norm"] = np.asarray(model.history_["grad_norm"], float)
+    return write_record(path, MODEL_KIND, header, arrays)
+
+
+def load_model(path):
+    """Load a model file written by ``save_model``; the result answers every fitted query."""
+    header, arrays = read_record(path, MODEL_KIND)
+    try:
+        model = VisibleGibbsModel.from_coefficients(header["terms"], arrays["coef"],
+                                                    **header["params"])
+        metrics = header["metrics"]
+    except (KeyError, TypeError) as err:
+        raise ThermoseedError(f"model file {str(path)!r} is incomplete: missing {err}") from err
+    for name, attr in [("loss", "loss_"), ("grad_norm", "grad_norm_"), ("n_iter", "n_iter_"),
+                       ("converged", "converged_"), ("data_entropy", "data_entropy_")]:
+        if name in metrics:
+            setattr(model, attr, metrics[name])
+    if "target_moments" in arrays:
+        model.target_moments_ = arrays["target_moments"]
+    if "history_loss" in arrays:
+        if "history_grad_norm" not in arrays:
+            raise ThermoseedError(f"model file {str(path)!r} is incomplete: missing "
+                                  "'history_grad_norm'")
+        model.history_ = {"loss": arrays["history_loss"].tolist(),
+                          "grad_norm": arrays["history_grad_norm"].tolist()}
+    return model

@@ -1,9 +1,10 @@
-"""Demo scenarios: small, seeded data generators (and later their TOML recipes).
+"""thermoseed recipes: the application on top of ``pretrain`` and ``bridge``.
 
-``magnet_phase``: transverse-field Ising ground / low-temperature states, ordered vs disordered.
-``probe_drift``: noisy GHZ-like probe states with a drifting phase, within vs beyond tolerance.
-``neighbour_xxz``: XXZ-chain terms, thermal states and ground energies for warm starts.
+``recipes.scenarios`` holds our demo data generators (magnet-phase sorting, probe-drift watch,
+XXZ neighbour warm start; they import ``thermoseed.pretrain`` only); the ``*.toml`` files are
+the built-in recipes; ``config`` is the typed recipe, ``pipeline`` runs one, ``findings``
+writes its plain-words summary, ``cli`` is the ``thermoseed`` command line.
 
-Recipes build on ``pretrain`` only (never ``bridge``); every generator writes the ``.npz``
-schema that ``pretrain.data.load_training_data`` reads.
+Layer order, lowest first (a module imports only modules before it):
+    scenarios -> config -> neighbour -> findings -> pipeline -> cli -> __main__
 """

@@ -15,7 +15,7 @@ import pytest
 import scipy.linalg
 from numerics import central_differences
 
-from bridge.ansatz import (
+from thermoseed.bridge.ansatz import (
     TEMPLATES,
     ansatz_columns,
     columns,
@@ -23,7 +23,7 @@ from bridge.ansatz import (
     unitary,
     user_ansatz,
 )
-from pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ThermoseedError
 
 TWO_WIRE_TEMPLATES = ("ladder", "soft")
 #: Agreement of two exact matrix computations in double precision.
@@ -145,8 +145,8 @@ def test_user_ansatz_unitary_matches_pennylane_and_has_gradient():
 
 
 def test_user_ansatz_through_compile():
-    from bridge.compile import compile_latent
-    from pretrain import VisibleGibbsModel, graph_terms
+    from thermoseed.bridge.compile import compile_latent
+    from thermoseed.pretrain import VisibleGibbsModel, graph_terms
 
     terms = graph_terms(2, "line", fields="XZ", couplings=("ZZ",))
     coef = np.random.default_rng(21).normal(0.0, 0.8, len(terms))

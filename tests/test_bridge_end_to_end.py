@@ -32,12 +32,12 @@ import numpy as np
 import pennylane as qml
 import pytest
 
-from bridge.ansatz import make_ansatz
-from bridge.compile import compile_latent
-from bridge.discriminative import DownstreamCircuit, train_classifier
-from bridge.seed import warm_start
-from pretrain import VisibleGibbsModel, graph_terms
-from recipes.magnet_phase import magnet_phase_data, train_test_split
+from thermoseed.bridge.ansatz import make_ansatz
+from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.warm_start import warm_start
+from thermoseed.pretrain import VisibleGibbsModel, graph_terms
+from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 N_QUBITS = 4
 ACCURACY_THRESHOLD = 0.875

@@ -12,9 +12,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from bridge.cli import main
-from bridge.recipe_config import load_recipe, validate_recipe
-from pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.cli import main
+from thermoseed.recipes.config import load_recipe, validate_recipe
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -88,8 +88,8 @@ def test_recipe_run_writes_every_output(tiny_runs):
     from matplotlib.image import imread
 
     assert imread(run / "decay.png").size > 0
-    from bridge.compile_io import load_compile
-    from pretrain import load_model
+    from thermoseed.bridge.compile_record import load_compile
+    from thermoseed.pretrain import load_model
 
     assert load_model(run / "model.npz").coef_.shape == (5,)  # X, Z fields on 2 wires + ZZ
     assert load_compile(run / "compile.npz").params.shape == (2, 2, 3)
@@ -126,7 +126,7 @@ def test_folder_of_other_recipe_is_refused(tiny_runs, capsys):
 
 
 def test_fit_compile_warm_start_inspect_commands(tmp_path, capsys):
-    from recipes.magnet_phase import magnet_phase_data
+    from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data
 
     magnet_phase_data(2, 12, seed=0).save_npz(tmp_path / "d.npz")
     assert main(["fit", str(tmp_path / "d.npz"), "--graph", "line", "--fields", "XZ",

@@ -18,12 +18,12 @@ import scipy.special
 from conftest import random_density, reference_hamiltonian
 from numerics import central_differences
 
-from bridge.ansatz import ansatz_columns, make_ansatz, user_ansatz
-from bridge.compile import _entropy_of_factor, compile_latent, compile_purified
-from bridge.compile_io import load_compile, save_compile
-from pretrain import VisibleGibbsModel, graph_terms
-from pretrain.errors import ThermoseedError
-from pretrain.io import save_model
+from thermoseed.bridge.ansatz import ansatz_columns, make_ansatz, user_ansatz
+from thermoseed.bridge.compile import _entropy_of_factor, compile_latent, compile_purified
+from thermoseed.bridge.compile_record import load_compile, save_compile
+from thermoseed.pretrain import VisibleGibbsModel, graph_terms
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.models import save_model
 
 #: Issue 3 acceptance levels for an expressive enough ansatz.
 TARGET_RELATIVE_ENTROPY = 1e-4
@@ -455,7 +455,7 @@ def _pair(params, wires):
 def test_user_ansatz_file_needs_the_ansatz(model2, tmp_path):
     ansatz = user_ansatz(_pair, (2,), wires=[0, 1], name="pair")
     result = compile_latent(model2, ansatz, k=1, restarts=1, max_iter=20)
-    path = result.save(tmp_path / "user.npz")
+    path = save_compile(result, tmp_path / "user.npz")
     with pytest.raises(ThermoseedError, match="pass the same ansatz"):
         load_compile(path)
     back = load_compile(path, ansatz=ansatz)

@@ -7,7 +7,7 @@ import pennylane as qml
 import pytest
 import qutip
 
-from pretrain import (
+from thermoseed.pretrain import (
     TermSet,
     ThermoseedError,
     TrainingData,
@@ -336,7 +336,7 @@ def test_target_moments_match_qutip(n, helpers):
 
 def test_square_array_kind_reads_hermitian_as_density_and_others_as_states():
     # Source: definition — a density matrix is Hermitian; random complex state batches are not.
-    from pretrain.data import square_array_kind
+    from thermoseed.pretrain.data import square_array_kind
 
     rng = np.random.default_rng(7)
     batch = rng.normal(size=(4, 4)) + 1j * rng.normal(size=(4, 4))

@@ -7,7 +7,7 @@ import qutip
 import scipy.linalg
 import scipy.special
 
-from pretrain import (
+from thermoseed.pretrain import (
     TermSet,
     VisibleGibbsModel,
     fidelity,

@@ -7,8 +7,8 @@ import os
 import numpy as np
 import pytest
 
-import pretrain.files
-from pretrain import (
+import thermoseed.pretrain.files
+from thermoseed.pretrain import (
     TermSet,
     ThermoseedError,
     VisibleGibbsModel,
@@ -18,7 +18,8 @@ from pretrain import (
     save_model,
     write_record,
 )
-from pretrain.io import FORMAT, FORMAT_VERSION, MODEL_KIND
+from thermoseed.pretrain.files import FORMAT, FORMAT_VERSION
+from thermoseed.pretrain.models import MODEL_KIND
 
 METRICS = ("loss_", "grad_norm_", "n_iter_", "converged_", "data_entropy_")
 
@@ -185,7 +186,7 @@ def test_failed_write_keeps_previous_file(tmp_path, fitted, monkeypatch, target)
     def boom(*args, **kwargs):
         raise OSError(f"simulated {target} failure")
 
-    monkeypatch.setattr(pretrain.files.os, target, boom)
+    monkeypatch.setattr(thermoseed.pretrain.files.os, target, boom)
     changed = VisibleGibbsModel.from_coefficients(fitted.terms_, np.zeros(len(fitted.terms_)))
     with pytest.raises(OSError, match="simulated"):
         changed.save(path)

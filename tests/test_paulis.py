@@ -4,7 +4,7 @@ import numpy as np
 import pennylane as qml
 import pytest
 
-from pretrain import (
+from thermoseed.pretrain import (
     PauliString,
     TermSet,
     ThermoseedError,
@@ -16,7 +16,7 @@ from pretrain import (
     sparse_hamiltonian,
     to_pennylane,
 )
-from pretrain.paulis import apply_hamiltonian
+from thermoseed.pretrain.paulis import apply_hamiltonian
 
 
 def pl_matrix(label: str) -> np.ndarray:

@@ -11,8 +11,9 @@ import numpy as np
 import pennylane as qml
 import pytest
 
-from bridge.ansatz import make_ansatz, unitary
-from bridge.plateau import (
+from thermoseed.bridge.ansatz import make_ansatz, unitary
+from thermoseed.bridge.plateau.gradients import CircuitGradient
+from thermoseed.bridge.plateau.probes import (
     LabelledData,
     PretrainSettings,
     identity_blocks,
@@ -25,15 +26,14 @@ from bridge.plateau import (
     train_curve,
     uniform,
 )
-from bridge.plateau_grad import CircuitGradient
-from bridge.plateau_stats import (
+from thermoseed.bridge.plateau.stats import (
     fit_decay,
     gradient_matrix,
     gradient_stats,
     summarize_curves,
 )
-from pretrain.errors import ThermoseedError
-from recipes.magnet_phase import magnet_phase_data, train_test_split
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 #: Sigmas allowed between a sample variance and its Haar value (see test_haar_variance).
 HAAR_SIGMAS = 4.0
@@ -171,7 +171,7 @@ def test_gradients_match_central_differences(template, cost):
 def test_classifier_gradient_matches_central_differences():
     """Classifier-cost probe gradient vs central differences of DownstreamCircuit.loss
     (source: central-difference formula, error O(h^2))."""
-    from bridge.discriminative import DownstreamCircuit
+    from thermoseed.bridge.classifier import DownstreamCircuit
 
     data = magnet_data(2)
     res = probe("small_angle", 2, 1, "classifier", 5, data=data, scale=0.7)

@@ -14,9 +14,9 @@ import pytest
 import scipy.linalg
 from numerics import PAULI_2x2, kron_pauli
 
-from pretrain.data import check_density_matrix, load_training_data
-from pretrain.errors import ThermoseedError
-from recipes import magnet_phase, neighbour_xxz, probe_drift
+from thermoseed.pretrain.data import check_density_matrix, load_training_data
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.scenarios import magnet_phase, neighbour_xxz, probe_drift
 
 
 def on_wires(n: int, letters: dict[int, str]) -> np.ndarray:
@@ -80,7 +80,7 @@ def test_tfim_ground_energy_matches_free_fermions(n, g):
 
 
 def test_tfim_terms_and_coefficients_build_the_reference_hamiltonian():
-    from pretrain.paulis import dense_hamiltonian
+    from thermoseed.pretrain.paulis import dense_hamiltonian
 
     n, g, j = 4, 0.7, 1.3
     h = dense_hamiltonian(magnet_phase.tfim_coefficients(n, g, j), magnet_phase.tfim_terms(n))

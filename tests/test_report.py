@@ -8,11 +8,11 @@ from __future__ import annotations
 import matplotlib.image
 import pytest
 
-from bridge.plateau import LabelledData
-from bridge.report import LIMITS, write_report
-from bridge.sweep import make_grid, run_sweep
-from pretrain.errors import ThermoseedError
-from recipes.magnet_phase import magnet_phase_data, train_test_split
+from thermoseed.bridge.plateau.probes import LabelledData
+from thermoseed.bridge.plateau.report import LIMITS, write_report
+from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 
 def test_report_renders_with_readable_pngs(tmp_path):

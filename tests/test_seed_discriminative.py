@@ -14,12 +14,12 @@ from conftest import random_density, random_state
 from numerics import central_differences
 from pennylane import numpy as pnp
 
-from bridge.ansatz import make_ansatz, unitary, user_ansatz
-from bridge.compile import compile_latent, compile_purified
-from bridge.discriminative import DownstreamCircuit, train_classifier
-from bridge.seed import identity_head, warm_start
-from pretrain import VisibleGibbsModel, graph_terms
-from pretrain.errors import ThermoseedError
+from thermoseed.bridge.ansatz import make_ansatz, unitary, user_ansatz
+from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
+from thermoseed.bridge.compile import compile_latent, compile_purified
+from thermoseed.bridge.warm_start import identity_head, warm_start
+from thermoseed.pretrain import VisibleGibbsModel, graph_terms
+from thermoseed.pretrain.errors import ThermoseedError
 
 IDENTITY_ATOL = 1e-12
 

@@ -11,10 +11,16 @@ import json
 
 import pytest
 
-from bridge.plateau import LabelledData
-from bridge.sweep import make_grid, probe_results, read_records, run_sweep, train_curves
-from pretrain.errors import ThermoseedError
-from recipes.magnet_phase import magnet_phase_data, train_test_split
+from thermoseed.bridge.plateau.probes import LabelledData
+from thermoseed.bridge.plateau.sweep import (
+    make_grid,
+    probe_results,
+    read_records,
+    run_sweep,
+    train_curves,
+)
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 
 class Interrupt(Exception):

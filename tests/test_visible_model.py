@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from pretrain import (
+from thermoseed.pretrain import (
     ConvergenceWarning,
     DivergenceWarning,
     NotFittedError,
@@ -19,7 +19,7 @@ from pretrain import (
     moment_residuals,
     von_neumann_entropy,
 )
-from pretrain.fit import load_checkpoint
+from thermoseed.pretrain.optim import load_checkpoint
 
 
 def _quiet_fit(model, data, **kwargs):

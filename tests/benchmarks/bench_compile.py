@@ -74,11 +74,11 @@ import autograd.numpy as anp
 import numpy as np
 import pennylane as qml
 
-from bridge.ansatz import ansatz_columns, columns, make_ansatz
-from bridge.compile import compile_latent, spectrum_latent
-from pretrain import VisibleGibbsModel
-from pretrain.linalg import entropy_of_spectrum, log_sum_exp_neg
-from recipes.magnet_phase import tfim_coefficients, tfim_terms
+from thermoseed.bridge.ansatz import ansatz_columns, columns, make_ansatz
+from thermoseed.bridge.compile import compile_latent, spectrum_latent
+from thermoseed.pretrain import VisibleGibbsModel
+from thermoseed.pretrain.linalg import entropy_of_spectrum, log_sum_exp_neg
+from thermoseed.recipes.scenarios.magnet_phase import tfim_coefficients, tfim_terms
 
 #: name -> (g / J, beta J); "disordered" is the target instance.
 INSTANCES = {"disordered": (1.5, 6.0), "ordered": (0.5, 8.0)}

@@ -65,7 +65,7 @@ import scipy.linalg  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from pretrain import (  # noqa: E402
+from thermoseed.pretrain import (  # noqa: E402
     ConvergenceWarning,
     TermSet,
     VisibleGibbsModel,

@@ -68,7 +68,7 @@ def parse(argv=None):
 
 
 def sweep_cases(args) -> list[dict]:
-    from bridge.sweep import make_grid, run_sweep
+    from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 
     jobs = make_grid(args.ns, args.strategies, range(args.seeds), costs=(args.cost,),
                      template=args.template)
@@ -100,8 +100,8 @@ def sweep_cases(args) -> list[dict]:
 
 
 def pretrained_cases(args) -> list[dict]:
-    from bridge.plateau import LabelledData, probe
-    from recipes.magnet_phase import magnet_phase_data, train_test_split
+    from thermoseed.bridge.plateau.probes import LabelledData, probe
+    from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
     out = []
     for n in args.pretrained_ns:

@@ -12,7 +12,7 @@ import json
 import sys
 from pathlib import Path
 
-from pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ThermoseedError
 
 
 def _positive_int(text: str) -> int:
@@ -89,7 +89,7 @@ def _say(args, message: str) -> None:
 
 
 def _cmd_fit(args) -> int:
-    from pretrain import VisibleGibbsModel, graph_terms, load_training_data
+    from thermoseed.pretrain import VisibleGibbsModel, graph_terms, load_training_data
 
     data = load_training_data(args.data, kind=args.kind, renormalize=args.renormalize)
     terms = graph_terms(data.n_qubits, args.graph, fields=args.fields,
@@ -106,10 +106,10 @@ def _cmd_fit(args) -> int:
 
 
 def _cmd_compile(args) -> int:
-    from pretrain import load_model, load_training_data
-
-    from .ansatz import make_ansatz
-    from .compile import compile_latent
+    from thermoseed.bridge.ansatz import make_ansatz
+    from thermoseed.bridge.compile import compile_latent
+    from thermoseed.bridge.compile_record import save_compile
+    from thermoseed.pretrain import load_model, load_training_data
 
     model = load_model(args.model)
     n = model.terms_.n_qubits
@@ -119,7 +119,7 @@ def _cmd_compile(args) -> int:
                             k=args.k, weight=args.weight, restarts=args.restarts,
                             seed=args.seed, max_iter=args.max_iter, data=data,
                             progress=not args.quiet)
-    path = result.save(args.out)
+    path = save_compile(result, args.out)
     print(_json({"compile": str(path), "latent_states": len(result.latent.basis),
                       **{k: v for k, v in result.report._asdict().items()}}))
     return 0
@@ -128,11 +128,10 @@ def _cmd_compile(args) -> int:
 def _cmd_warm_start(args) -> int:
     import numpy as np
 
-    from pretrain.files import atomic_save_npz
-
-    from .ansatz import make_ansatz
-    from .compile_io import load_compile
-    from .seed import warm_start
+    from thermoseed.bridge.ansatz import make_ansatz
+    from thermoseed.bridge.compile_record import load_compile
+    from thermoseed.bridge.warm_start import warm_start
+    from thermoseed.pretrain.files import atomic_save_npz
 
     result = load_compile(args.compile)
     head = make_ansatz(args.head, result.n_visible, args.head_layers) if args.head else None
@@ -147,8 +146,7 @@ def _cmd_warm_start(args) -> int:
 def _cmd_inspect(args) -> int:
     import numpy as np
 
-    from pretrain.files import load_npz
-    from pretrain.io import read_record
+    from thermoseed.pretrain.files import load_npz, read_record
 
     try:
         header, arrays = read_record(args.file)
@@ -165,9 +163,8 @@ def _load_labelled(path):
     counterparts) as classifier data."""
     import numpy as np
 
-    from pretrain.files import load_npz
-
-    from .plateau import LabelledData
+    from thermoseed.bridge.plateau.probes import LabelledData
+    from thermoseed.pretrain.files import load_npz
 
     arrays = load_npz(path, what="data file")
     key = "states" if "states" in arrays else "density"
@@ -181,7 +178,7 @@ def _load_labelled(path):
 
 
 def _cmd_sweep(args) -> int:
-    from .sweep import make_grid, run_sweep
+    from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 
     data = None
     if args.data:
@@ -197,8 +194,8 @@ def _cmd_sweep(args) -> int:
 
 
 def _cmd_report(args) -> int:
-    from .report import write_report
-    from .sweep import read_records
+    from thermoseed.bridge.plateau.report import write_report
+    from thermoseed.bridge.plateau.sweep import read_records
 
     records = read_records(args.results)
     if not records:
@@ -209,8 +206,8 @@ def _cmd_report(args) -> int:
 
 
 def _cmd_run(args) -> int:
-    from .pipeline import run_recipe
-    from .recipe_config import load_recipe
+    from thermoseed.recipes.config import load_recipe
+    from thermoseed.recipes.pipeline import run_recipe
 
     recipe = load_recipe(args.recipe, qubits=args.qubits, seed=args.seed, quick=args.quick)
     out = Path(args.out) if args.out else Path("thermoseed-runs") / recipe["name"]

@@ -24,13 +24,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pretrain.engines import DenseEngine
-from pretrain.errors import ThermoseedError
-from pretrain.linalg import eigh
-from pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
-
-from ._checks import inverse_temperature, qubit_count, real_number, seed_value
-from ._record import ScenarioRecord
+from thermoseed.pretrain.engines import DenseEngine
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.linalg import eigh
+from thermoseed.pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
+from thermoseed.recipes.scenarios.checks import (
+    inverse_temperature,
+    qubit_count,
+    real_number,
+    seed_value,
+)
+from thermoseed.recipes.scenarios.record import ScenarioRecord
 
 #: Largest chain handled (dense 2^n x 2^n diagonalisation per sample).
 MAX_QUBITS = 12

@@ -19,9 +19,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
-
-from .plateau import ProbeResult, TrainCurve
+from thermoseed.bridge.plateau.probes import ProbeResult, TrainCurve
+from thermoseed.pretrain.errors import ThermoseedError
 
 STATISTICS = ("mean_var", "max_var", "mean_sq_norm")
 #: Rows of seeds bootstrapped per vectorised chunk (bounds memory at chunk * R * K floats).

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pretrain.files import atomic_save_npz
+from thermoseed.pretrain.files import atomic_save_npz
 
 
 class ScenarioRecord:

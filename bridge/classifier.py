@@ -19,10 +19,9 @@ import numpy as np
 from pennylane import numpy as pnp
 from tqdm.auto import tqdm
 
-from pretrain.errors import ThermoseedError
-from pretrain.fit import adam
-
-from .ansatz import Ansatz, ansatz_columns
+from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.optim import adam
 
 #: Added inside the log of the cross-entropy so a zero probability gives a finite loss.
 LOG_FLOOR = 1e-12

@@ -10,11 +10,10 @@ from pathlib import Path
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
-from pretrain.io import read_record, write_record
-
-from .ansatz import Ansatz, make_ansatz
-from .compile import CompileReport, CompileResult, Latent
+from thermoseed.bridge.ansatz import Ansatz, make_ansatz
+from thermoseed.bridge.compile import CompileReport, CompileResult, Latent
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.files import json_scalar, read_record, write_record
 
 COMPILE_KIND = "compile-result"
 
@@ -28,7 +27,7 @@ def save_compile(result: CompileResult, path) -> Path:
                    "n_wires": a.n_wires, "builtin": a.builtin},
         "n_visible": result.n_visible,
         "model_terms": list(result.model_terms),
-        "report": {k: _json_scalar(v) for k, v in result.report._asdict().items()},
+        "report": {k: json_scalar(v) for k, v in result.report._asdict().items()},
     }
     arrays = {"params": np.asarray(result.params, float),
               "model_coef": np.asarray(result.model_coef, float),
@@ -38,16 +37,6 @@ def save_compile(result: CompileResult, path) -> Path:
         arrays["latent_basis"] = np.asarray(result.latent.basis, np.int64)
         arrays["latent_probs"] = np.asarray(result.latent.probs, float)
     return write_record(path, COMPILE_KIND, header, arrays)
-
-
-def _json_scalar(value):
-    """None, bool and int stay as they are (so a loaded report equals the saved one, types
-    included); every other number becomes a float."""
-    if value is None or isinstance(value, (bool, np.bool_)):
-        return None if value is None else bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    return float(value)
 
 
 def load_compile(path, ansatz: Ansatz | None = None) -> CompileResult:

@@ -9,11 +9,10 @@ from collections import defaultdict
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
-
-from .plateau_stats import decay_rates, summarize_curves
-from .report import LIMITS, _save, _style
-from .sweep import probe_results, train_curves
+from thermoseed.bridge.plateau.report import LIMITS, _save, _style
+from thermoseed.bridge.plateau.stats import decay_rates, summarize_curves
+from thermoseed.bridge.plateau.sweep import probe_results, train_curves
+from thermoseed.pretrain.errors import ThermoseedError
 
 
 def _fmt_reach(value, target: float) -> str:

@@ -33,14 +33,13 @@ import autograd
 import numpy as np
 from pennylane import numpy as pnp
 
-from pretrain import VisibleGibbsModel, as_training_data, graph_terms
-from pretrain.errors import ThermoseedError
-
-from .ansatz import Ansatz, make_ansatz
-from .compile import compile_latent
-from .discriminative import DownstreamCircuit, train_classifier
-from .plateau_grad import CircuitGradient, active_mask
-from .seed import warm_start
+from thermoseed.bridge.ansatz import Ansatz, make_ansatz
+from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.plateau.gradients import CircuitGradient, active_mask
+from thermoseed.bridge.warm_start import warm_start
+from thermoseed.pretrain import VisibleGibbsModel, as_training_data, graph_terms
+from thermoseed.pretrain.errors import ThermoseedError
 
 COSTS = ("local", "global", "classifier")
 STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretrained_perturbed")

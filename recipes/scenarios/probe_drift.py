@@ -20,10 +20,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
-
-from ._checks import integer_in, real_number
-from ._record import ScenarioRecord
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.scenarios.checks import integer_in, real_number
+from thermoseed.recipes.scenarios.record import ScenarioRecord
 
 #: Largest probe handled (dense 2^n x 2^n density matrices per sample).
 MAX_QUBITS = 10

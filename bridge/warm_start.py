@@ -11,10 +11,9 @@ from __future__ import annotations
 import numpy as np
 from pennylane import numpy as pnp
 
-from pretrain.errors import ThermoseedError
-
-from .ansatz import Ansatz
-from .compile import CompileResult, compile_latent
+from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.compile import CompileResult, compile_latent
+from thermoseed.pretrain.errors import ThermoseedError
 
 #: Built-in heads whose all-zero parameters are exactly the identity.
 IDENTITY_AT_ZERO = ("soft",)

@@ -15,7 +15,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ThermoseedError
 
 try:  # Python >= 3.11
     import tomllib
@@ -60,7 +60,7 @@ QUICK = {
 
 
 def _builtin_path(name: str) -> Path:
-    return Path(str(resources.files("recipes").joinpath(f"{name}.toml")))
+    return Path(str(resources.files("thermoseed.recipes").joinpath(f"{name}.toml")))
 
 
 def load_recipe(source, *, qubits: int | None = None, seed: int | None = None,

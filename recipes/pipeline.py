@@ -23,17 +23,17 @@ from typing import Any
 
 import numpy as np
 
-from pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
-from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_save_npz, atomic_write_bytes
-
-from .ansatz import make_ansatz
-from .compile import compile_latent
-from .plateau import LabelledData, PretrainSettings
-from .recipe_config import fingerprint
-from .report import write_report
-from .seed import warm_start
-from .sweep import make_grid, run_sweep
+from thermoseed.bridge.ansatz import make_ansatz
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.compile_record import save_compile
+from thermoseed.bridge.plateau.probes import LabelledData, PretrainSettings
+from thermoseed.bridge.plateau.report import write_report
+from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
+from thermoseed.bridge.warm_start import warm_start
+from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
+from thermoseed.recipes.config import fingerprint
 
 RUN_FILE = "run.json"
 
@@ -97,12 +97,12 @@ def classification_data(scenario: str, n: int, samples: int, test_fraction: floa
                         seed: int) -> LabelledData:
     """Seeded scenario data at ``n`` qubits, split into train / test (stratified)."""
     if scenario == "magnet-phase":
-        from recipes.magnet_phase import magnet_phase_data
+        from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data
 
         batch = magnet_phase_data(n, samples, seed=seed)
         states = batch.states
     else:
-        from recipes.probe_drift import probe_drift_data
+        from thermoseed.recipes.scenarios.probe_drift import probe_drift_data
 
         batch = probe_drift_data(n, samples, seed=seed)
         states = batch.density
@@ -138,7 +138,7 @@ def _pretrain_chain(recipe: dict, out: Path, run: dict, terms, td, progress: boo
         result = compile_latent(model, unit, restarts=comp["restarts"],
                                 max_iter=comp["max_iter"], seed=recipe["seed"], data=td.rho,
                                 progress=progress)
-        result.save(out / "compile.npz")
+        save_compile(result, out / "compile.npz")
     params = np.asarray(warm_start(result, head=unit), dtype=float)
     atomic_save_npz(out / "warm_start.npz", {"params": params,
                                               "encoder_shape": np.array(unit.shape),
@@ -184,7 +184,7 @@ def run_classification(recipe: dict, out: Path, run: dict, progress: bool, worke
     run["files"]["results"] = "results.jsonl"
     run["sweep"] = {"jobs": len(jobs), "ran": result.ran, "skipped": result.skipped}
     with _Stage(run, out, "report"):
-        from .findings import classification_findings
+        from thermoseed.recipes.findings import classification_findings
 
         write_report(result.records, out, title="Plateau comparison in detail",
                      target=train["target_accuracy"], seed=seed,
@@ -193,10 +193,14 @@ def run_classification(recipe: dict, out: Path, run: dict, progress: bool, worke
 
 
 def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
-    from recipes.neighbour_xxz import ground_energy, thermal_state, xxz_hamiltonian, xxz_terms
-
-    from .findings import eigensolver_findings, plot_energy_runs
-    from .neighbour import energy_runs
+    from thermoseed.recipes.findings import eigensolver_findings, plot_energy_runs
+    from thermoseed.recipes.neighbour import energy_runs
+    from thermoseed.recipes.scenarios.neighbour_xxz import (
+        ground_energy,
+        thermal_state,
+        xxz_hamiltonian,
+        xxz_terms,
+    )
 
     data_cfg, solver = recipe["data"], recipe["eigensolver"]
     n = data_cfg["qubits"]

@@ -15,9 +15,8 @@ import pennylane as qml
 from pennylane import numpy as pnp
 from pennylane.devices import ExecutionConfig
 
-from pretrain.errors import ThermoseedError
-
-from .ansatz import Ansatz
+from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.pretrain.errors import ThermoseedError
 
 METHODS = ("auto", "adjoint", "backprop")
 #: First marker angle of the parameter map (markers are 3, 4, 5, ...: no common constant

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ThermoseedError
 
 
 def real_number(value, what: str) -> float:

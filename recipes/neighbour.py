@@ -15,10 +15,10 @@ from itertools import product
 import numpy as np
 from tqdm.auto import tqdm
 
-from .compile import CompileResult
-from .eigensolver import run_eigensolver
-from .plateau import PERTURBATION_SCALE, make_strategy
-from .seed import identity_head
+from thermoseed.bridge.compile import CompileResult
+from thermoseed.bridge.eigensolver import run_eigensolver
+from thermoseed.bridge.plateau.probes import PERTURBATION_SCALE, make_strategy
+from thermoseed.bridge.warm_start import identity_head
 
 
 def energy_runs(result: CompileResult, hamiltonian: np.ndarray, target: float, strategies,

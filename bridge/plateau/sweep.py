@@ -36,10 +36,7 @@ from typing import NamedTuple
 import numpy as np
 from tqdm.auto import tqdm
 
-from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_write_bytes
-
-from .plateau import (
+from thermoseed.bridge.plateau.probes import (
     COSTS,
     STRATEGIES,
     LabelledData,
@@ -49,6 +46,8 @@ from .plateau import (
     probe_seeds,
     train_curve,
 )
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.files import atomic_write_bytes
 
 TASKS = ("gradient", "training")
 #: Seeds batched into one unit of work by default.

@@ -16,10 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-from pretrain.errors import ThermoseedError
-from pretrain.files import atomic_write_bytes
-
-from .plateau_stats import (
+from thermoseed.bridge.plateau.stats import (
     CurveSummary,
     DecayFit,
     GroupKey,
@@ -28,7 +25,9 @@ from .plateau_stats import (
     group_probes,
     summarize_curves,
 )
-from .sweep import probe_results, train_curves
+from thermoseed.bridge.plateau.sweep import probe_results, train_curves
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.files import atomic_write_bytes
 
 #: Display label and colour per strategy (our own palette).
 STYLE = {
