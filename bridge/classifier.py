@@ -10,7 +10,7 @@ mean cross-entropy ``-log p_label``. Everything is autograd-differentiable.
 from __future__ import annotations
 
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from typing import NamedTuple
 
 import autograd
@@ -19,9 +19,10 @@ import numpy as np
 from pennylane import numpy as pnp
 from tqdm.auto import tqdm
 
-from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
+from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.pretrain.optim import adam
+from thermoseed.pretrain.optim import Callback, adam_steps
 
 #: Added inside the log of the cross-entropy so a zero probability gives a finite loss.
 LOG_FLOOR = 1e-12
@@ -39,10 +40,7 @@ class DownstreamCircuit:
 
     def __init__(self, encoder: Ansatz, head: Ansatz, readout: Sequence[int] = (0,),
                  n_classes: int = 2):
-        if head.n_wires != encoder.n_wires:
-            raise ThermoseedError(
-                f"head acts on {head.n_wires} wires but the encoder on {encoder.n_wires}"
-            )
+        self.blocks = TwoBlock(encoder, head)
         readout = tuple(int(r) for r in readout)
         if not readout or any(not 0 <= r < encoder.n_wires for r in readout) or \
                 len(set(readout)) != len(readout):
@@ -59,35 +57,23 @@ class DownstreamCircuit:
 
     @property
     def n_wires(self) -> int:
-        return self.encoder.n_wires
+        return self.blocks.n_wires
 
     @property
     def n_params(self) -> int:
-        return self.encoder.n_params + self.head.n_params
+        return self.blocks.n_params
 
     def split(self, params):
-        """Flat vector -> (encoder params, head params) in their own shapes."""
-        if tuple(np.shape(params)) != (self.n_params,):
-            raise ThermoseedError(
-                f"expected a flat parameter vector of length {self.n_params}, "
-                f"got shape {tuple(np.shape(params))}"
-            )
-        k = self.encoder.n_params
-        return (anp.reshape(params[:k], self.encoder.shape),
-                anp.reshape(params[k:], self.head.shape))
+        """Flat vector -> (encoder params, head params) (``TwoBlock.split``)."""
+        return self.blocks.split(params)
 
     def join(self, encoder_params, head_params) -> pnp.ndarray:
-        """(encoder params, head params) -> one trainable flat vector."""
-        flat = np.concatenate([np.ravel(self.encoder.check(encoder_params)),
-                               np.ravel(self.head.check(head_params))])
-        return pnp.array(flat, requires_grad=True)
+        """(encoder params, head params) -> one trainable flat vector (``TwoBlock.join``)."""
+        return self.blocks.join(encoder_params, head_params)
 
     def unitary(self, params):
         """``W = V(head) U(encoder)^dag`` as a d x d matrix."""
-        enc, head = self.split(params)
-        u = anp.transpose(ansatz_columns(self.encoder, enc))
-        v = anp.transpose(ansatz_columns(self.head, head))
-        return anp.dot(v, anp.conj(anp.transpose(u)))
+        return self.blocks.unitary(params)
 
     def _outcomes(self, params, states):
         w = self.unitary(params)
@@ -132,12 +118,11 @@ class DownstreamCircuit:
         circuit and returns readout probabilities (for running on any device)."""
         import pennylane as qml
 
-        enc, head = self.split(params)
+        self.split(params)  # shape check before a device ever sees the circuit
 
         def circuit(state):
             qml.StatePrep(state, wires=range(self.n_wires))
-            self.encoder.adjoint(enc, range(self.n_wires))
-            self.head(head, range(self.n_wires))
+            self.blocks(params, range(self.n_wires))
             return qml.probs(wires=list(self.readout))
 
         return circuit
@@ -165,9 +150,13 @@ def train_classifier(
     circuit: DownstreamCircuit, params0, train_states, train_labels, test_states=None,
     test_labels=None, *, steps: int = 100, batch_size: int = 32, learning_rate: float = 0.05,
     seed: int = 0, progress: bool = False,
-    callback: Callable[[int, np.ndarray, float], bool | None] | None = None,
+    callback: Callback | None = None,
 ) -> TrainingRun:
     """Adam on minibatches (seeded shuffles, a new permutation every epoch).
+
+    ``callback(step, params, loss, grad)`` (the signature every thermoseed optimiser uses;
+    ``loss`` is the full training-set loss after the step, ``grad`` the minibatch gradient)
+    stops the run by returning True.
 
     Records the full-training-set loss and accuracy and the held-out accuracy at every step.
     """
@@ -181,11 +170,16 @@ def train_classifier(
     if not np.all(np.isfinite(params)):
         raise ThermoseedError("params0 contains NaN or inf")
     rng = np.random.default_rng(seed)
-    grad_fn = autograd.grad(circuit.loss)
-    opt = adam(learning_rate)
-    state = opt.init(params)
+    value_and_grad = autograd.value_and_grad(circuit.loss)
     order = np.array([], dtype=int)
     record = TrainingRun(params, [], [], [])
+
+    def batch_loss_and_grad(p):
+        nonlocal order
+        if order.size < batch_size:
+            order = np.concatenate([order, rng.permutation(len(train_states))])
+        batch, order = order[:batch_size], order[batch_size:]
+        return value_and_grad(p, train_states[batch], train_labels[batch])
 
     def log(p):
         record.loss.append(float(circuit.loss(p, train_states, train_labels)))
@@ -194,15 +188,14 @@ def train_classifier(
             record.test_accuracy.append(circuit.accuracy(p, test_states, test_labels))
 
     log(params)
-    for step in tqdm(range(1, steps + 1), disable=not progress, file=sys.stderr,
-                     desc="train", leave=False):
-        if order.size < batch_size:
-            order = np.concatenate([order, rng.permutation(len(train_states))])
-        batch, order = order[:batch_size], order[batch_size:]
-        grad = np.asarray(grad_fn(params, train_states[batch], train_labels[batch]))
-        delta, state = opt.update(grad, state)
-        params = params + delta
+    bar = tqdm(total=steps, disable=not progress, file=sys.stderr, desc="train", leave=False)
+    path = adam_steps(batch_loss_and_grad, params, learning_rate=learning_rate)
+    for item in (path if steps else ()):
+        params = item.x
         log(params)
-        if callback is not None and callback(step, params, record.loss[-1]):
+        bar.update(1)
+        if (callback is not None and callback(item.step, params, record.loss[-1], item.grad)) \
+                or item.step >= steps:
             break
+    bar.close()
     return record._replace(params=params)

@@ -16,8 +16,9 @@ import numpy as np
 from tqdm.auto import tqdm
 
 from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.pretrain.optim import adam
+from thermoseed.pretrain.optim import adam_steps
 
 
 class EnergyRun(NamedTuple):
@@ -34,50 +35,50 @@ def energy(ansatz: Ansatz, params, hamiltonian: np.ndarray):
     return anp.real(anp.dot(anp.conj(psi), anp.dot(hamiltonian, psi)))
 
 
-def pair_energy(ansatz: Ansatz, pair, hamiltonian: np.ndarray):
-    """``E(e, h) = <psi|H|psi>`` with ``psi = U(h) U(e)^dag |0>`` (the plateau probes'
-    two-block circuit; ``h = e`` is an identity block, ``e`` = identity gives ``U(h)|0>``)."""
-    rows_e = ansatz_columns(ansatz, pair[0])
-    start = anp.conj(rows_e[:, 0])  # U^dag|0> = conj of U's first row
-    psi = anp.dot(anp.transpose(ansatz_columns(ansatz, pair[1])), start)
+def two_block_energy(blocks: TwoBlock, params, hamiltonian: np.ndarray):
+    """``E = <psi|H|psi>`` with ``psi = U(h) U(e)^dag |0>`` (``TwoBlock``, flat parameters;
+    ``h = e`` is an identity block, ``e`` at the identity point gives ``U(h)|0>``)."""
+    psi = blocks.unitary(params)[:, 0]
     return anp.real(anp.dot(anp.conj(psi), anp.dot(hamiltonian, psi)))
 
 
 def run_eigensolver(
-    ansatz: Ansatz, hamiltonian: np.ndarray, params0, *, steps: int = 200,
+    circuit: Ansatz | TwoBlock, hamiltonian: np.ndarray, params0, *, steps: int = 200,
     learning_rate: float = 0.05, target: float | None = None, progress: bool = False,
-    paired: bool = False,
 ) -> EnergyRun:
     """Adam on ``E(phi)`` for ``steps`` steps; ``target`` is an energy threshold
     (the step count to reach ``E <= target`` is recorded, the run continues).
-    ``paired``: parameters have shape ``(2, *ansatz.shape)`` and the energy is
-    ``pair_energy``."""
+    ``circuit`` is an ``Ansatz`` (``energy``) or a ``TwoBlock`` (``two_block_energy``, flat
+    parameters)."""
+    d = 2**circuit.n_wires
     h = np.asarray(hamiltonian)
-    d = 2**ansatz.n_wires
     if h.shape != (d, d) or not np.allclose(h, h.conj().T):
         raise ThermoseedError(f"the Hamiltonian must be a Hermitian {d}x{d} matrix, got {h.shape}")
     params = np.asarray(params0, dtype=float).copy()
-    if paired:
-        if params.shape != (2, *ansatz.shape):
-            raise ThermoseedError(
-                f"paired parameters must have shape {(2, *ansatz.shape)}, got {params.shape}")
-        ansatz.check(params[0])
-        value_and_grad = autograd.value_and_grad(lambda p: pair_energy(ansatz, p, h))
+    if isinstance(circuit, TwoBlock):
+        circuit.split(params)
+        value_and_grad = autograd.value_and_grad(lambda p: two_block_energy(circuit, p, h))
     else:
-        ansatz.check(params)
-        value_and_grad = autograd.value_and_grad(lambda p: energy(ansatz, p, h))
-    opt = adam(learning_rate)
-    state = opt.init(params)
+        circuit.check(params)
+        value_and_grad = autograd.value_and_grad(lambda p: energy(circuit, p, h))
     energies: list[float] = []
     reached = None
-    for step in tqdm(range(steps + 1), disable=not progress, file=sys.stderr, desc="eigensolver",
-                     leave=False):
-        value, grad = value_and_grad(params)
+    bar = tqdm(total=steps + 1, disable=not progress, file=sys.stderr, desc="eigensolver",
+               leave=False)
+
+    def note(value: float) -> None:
+        nonlocal reached
         energies.append(float(value))
         if reached is None and target is not None and value <= target:
-            reached = step
-        if step == steps:
+            reached = len(energies) - 1
+        bar.update(1)
+
+    for item in (adam_steps(value_and_grad, params, learning_rate=learning_rate)
+                 if steps else ()):
+        note(item.loss)  # energy at the iterate before this step
+        params = item.x
+        if item.step >= steps:
             break
-        delta, state = opt.update(np.asarray(grad, dtype=float), state)
-        params = params + delta
+    note(value_and_grad(params)[0])
+    bar.close()
     return EnergyRun(params, energies, reached)

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import sys
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import NamedTuple
 
@@ -57,6 +57,37 @@ def adam(learning_rate: float = 0.05, b1: float = 0.9, b2: float = 0.999, eps: f
         return -learning_rate * mhat / (np.sqrt(vhat) + eps), AdamState(step, mean, second)
 
     return Stepper(init, update)
+
+
+class AdamStep(NamedTuple):
+    """One Adam step: ``loss`` and ``grad`` at the previous iterate, ``x`` after the update."""
+
+    step: int
+    x: np.ndarray
+    loss: float
+    grad: np.ndarray
+    state: AdamState
+
+
+def adam_steps(
+    loss_and_grad: LossAndGrad, x0: np.ndarray, *, learning_rate: float = 0.05,
+    state: AdamState | None = None,
+) -> Iterator[AdamStep]:
+    """The one Adam loop: ``x_{t+1} = x_t + adam_update(grad L(x_t))``, forever.
+
+    Every optimiser run in thermoseed that uses Adam (Gibbs fits, classifier training, the
+    eigensolver) consumes this iterator and stops it when it likes; ``loss_and_grad`` may be
+    stochastic (minibatches) as long as it is seeded. ``state`` resumes a run.
+    """
+    opt = adam(learning_rate)
+    x = np.asarray(x0, dtype=float).copy()
+    state = opt.init(x) if state is None else state
+    while True:
+        loss, grad = loss_and_grad(x)
+        grad = np.asarray(grad, dtype=float)
+        delta, state = opt.update(grad, state)
+        x = x + delta
+        yield AdamStep(state.step, x, float(loss), grad, state)
 
 
 class FitResult(NamedTuple):
@@ -182,17 +213,16 @@ def minimize(
 
 
 def _run_adam(loss_and_grad, x, rec, tol, max_iter, learning_rate, extra) -> np.ndarray:
-    opt = adam(learning_rate)
-    state = opt.init(x)
+    state = None
     if "mean" in extra:
         state = AdamState(int(extra["step"]), extra["mean"], extra["second"])
-    while rec.step < max_iter:
-        loss, grad = loss_and_grad(x)
-        if np.linalg.norm(grad) <= tol:
-            break
-        delta, state = opt.update(grad, state)
-        x = x + delta
-        if rec.record(x, loss, grad, state._asdict()):
+    if rec.step >= max_iter:
+        return x
+    for item in adam_steps(loss_and_grad, x, learning_rate=learning_rate, state=state):
+        if np.linalg.norm(item.grad) <= tol:
+            break  # x is the iterate the small gradient was measured at
+        x = item.x
+        if rec.record(x, item.loss, item.grad, item.state._asdict()) or rec.step >= max_iter:
             break
     return x
 

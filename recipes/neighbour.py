@@ -15,6 +15,7 @@ from itertools import product
 import numpy as np
 from tqdm.auto import tqdm
 
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import CompileResult
 from thermoseed.bridge.eigensolver import run_eigensolver
 from thermoseed.bridge.plateau.probes import PERTURBATION_SCALE, make_strategy
@@ -25,20 +26,20 @@ def energy_runs(result: CompileResult, hamiltonian: np.ndarray, target: float, s
                 seeds, *, steps: int, learning_rate: float, progress: bool = False) -> list:
     """One record per (strategy, seed): energies per step and steps to ``target``."""
     unit = result.ansatz
-    shape = (2, *unit.shape)
+    blocks = TwoBlock(unit, unit)
     records = []
     grid = list(product(strategies, seeds))
     for name, seed in tqdm(grid, disable=not progress, file=sys.stderr, desc="eigensolver",
                            unit="run", leave=False):
         rng = np.random.default_rng(seed)
         if name.startswith("pretrained"):
-            pair = np.stack([identity_head(unit), np.asarray(result.params, float)])
+            params = np.asarray(blocks.join(identity_head(unit), result.params), float)
             if name == "pretrained_perturbed":
-                pair = pair + PERTURBATION_SCALE * rng.standard_normal(shape)
+                params = params + PERTURBATION_SCALE * rng.standard_normal(blocks.shape)
         else:
-            pair = np.asarray(make_strategy(name).init(shape, rng), dtype=float)
-        run = run_eigensolver(unit, hamiltonian, pair, steps=steps,
-                              learning_rate=learning_rate, target=target, paired=True)
+            params = np.asarray(make_strategy(name).init(blocks.shape, rng), dtype=float)
+        run = run_eigensolver(blocks, hamiltonian, params, steps=steps,
+                              learning_rate=learning_rate, target=target)
         records.append({"strategy": name, "seed": int(seed), "energies": run.energies,
                         "steps_to_target": run.steps_to_target})
     return records

@@ -16,6 +16,7 @@ from pennylane import numpy as pnp
 from pennylane.devices import ExecutionConfig
 
 from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.pretrain.errors import ThermoseedError
 
 METHODS = ("auto", "adjoint", "backprop")
@@ -30,11 +31,10 @@ def _observable(cost: str, n: int):
     return qml.Projector(np.zeros(n, dtype=int), wires=range(n))
 
 
-def _pair_tape(unit: Ansatz, params, psi, observable) -> qml.tape.QuantumScript:
+def _pair_tape(blocks: TwoBlock, params, psi, observable) -> qml.tape.QuantumScript:
     with qml.queuing.AnnotatedQueue() as queue:
-        qml.StatePrep(psi, wires=range(unit.n_wires))
-        unit.adjoint(params[0])
-        unit(params[1])
+        qml.StatePrep(psi, wires=range(blocks.n_wires))
+        blocks(params)
         qml.expval(observable)
     return qml.tape.QuantumScript.from_queue(queue)
 
@@ -79,7 +79,7 @@ def _marker_map(tape, offset: float, size: int):
 
 class CircuitGradient:
     """Reusable ``(C, dC/dphi, active)`` of the local or global cost of ``V = U(h) U(e)^dag``
-    on an input state ``psi``, for parameter pairs of shape ``(2, *unit.shape)``.
+    on an input state ``psi``, for the flat parameters ``[e, h]`` of ``TwoBlock(unit, unit)``.
 
     ``adjoint``: the circuit is decomposed and preprocessed for ``lightning.qubit`` once,
     with marker angles (3, 4, 5, ... and again 3.5, 4.5, ...); both passes must agree that
@@ -94,9 +94,10 @@ class CircuitGradient:
         if method not in METHODS:
             raise ThermoseedError(f"unknown gradient method {method!r}; choose one of {METHODS}")
         self.unit, self.cost = unit, cost
-        self.shape = (2, *unit.shape)
+        self.blocks = TwoBlock(unit, unit)
+        self.shape = self.blocks.shape
         self.observable = _observable(cost, unit.n_wires)
-        self.active = active_mask(unit, self.shape)
+        self.active = active_mask(self.blocks)
         self.method = "backprop/default.qubit"
         if method in ("auto", "adjoint"):
             try:
@@ -122,7 +123,7 @@ class CircuitGradient:
         for offset in (_MARKER0, _MARKER0 + 0.5):
             angles = (offset + np.arange(size, dtype=float)).reshape(self.shape)
             tape = _device_tape(self._dev, self._config,
-                                _pair_tape(self.unit, angles, psi, self.observable))
+                                _pair_tape(self.blocks, angles, psi, self.observable))
             maps.append((tape, _marker_map(tape, offset, size)))
         (tape, (pos, index, sign, const)), (tape2, (pos2, index2, sign2, const2)) = maps
         same = ([op.name for op in tape.operations] == [op.name for op in tape2.operations]
@@ -134,14 +135,13 @@ class CircuitGradient:
         self._tape, self._positions, self._index, self._sign = tape, pos, index, sign
 
     def _setup_backprop(self) -> None:
-        unit, observable = self.unit, self.observable
+        blocks, observable = self.blocks, self.observable
 
-        @qml.qnode(qml.device("default.qubit", wires=unit.n_wires), interface="autograd",
+        @qml.qnode(qml.device("default.qubit", wires=blocks.n_wires), interface="autograd",
                    diff_method="backprop")
         def run(p, psi):
-            qml.StatePrep(psi, wires=range(unit.n_wires))
-            unit.adjoint(p[0])
-            unit(p[1])
+            qml.StatePrep(psi, wires=range(blocks.n_wires))
+            blocks(p)
             return qml.expval(observable)
 
         self._qnode = run
@@ -165,7 +165,7 @@ class CircuitGradient:
         return params
 
     def __call__(self, params, psi) -> tuple[float, np.ndarray]:
-        """``(C, dC/dphi)`` at ``params`` (shape ``(2, *U.shape)``) for input ``psi``."""
+        """``(C, dC/dphi)`` at the flat ``params`` for input ``psi``."""
         params = self._check(params)
         if self.method.startswith("adjoint"):
             new = [np.asarray(psi)] + list(self._sign * params.ravel()[self._index])
@@ -184,16 +184,14 @@ class CircuitGradient:
         return value, grad
 
 
-def active_mask(unit: Ansatz, shape) -> np.ndarray:
+def active_mask(blocks: TwoBlock) -> np.ndarray:
     """Parameters that reach a gate: queue ``V`` with marker angles ``3, 4, ...`` and keep
     the markers that appear (up to sign) among the queued operations' parameters."""
-    markers = _MARKER0 + np.arange(int(np.prod(shape)), dtype=float)
-    pair = markers.reshape(shape)
+    markers = _MARKER0 + np.arange(blocks.n_params, dtype=float)
     with qml.queuing.AnnotatedQueue() as queue:
-        unit.adjoint(pair[0])
-        unit(pair[1])
+        blocks(markers)
     found: list[float] = []
     for op in queue.queue:
         for v in getattr(op, "parameters", []):
             found.extend(np.abs(np.ravel(np.asarray(v, dtype=float))).tolist())
-    return np.isin(markers, found).reshape(shape)
+    return np.isin(markers, found)

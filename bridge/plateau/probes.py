@@ -3,9 +3,9 @@
 Probe circuit (every strategy, every cost): one ansatz U with ``depth`` layers on n wires,
 used twice in the downstream orientation,
 
-    ``V(e, h) = U(h) U(e)^dag``,  parameters ``phi = [e, h]`` of shape ``(2, *U.shape)``,
+    ``V(e, h) = U(h) U(e)^dag``,  flat parameters ``phi = [e.ravel(), h.ravel()]``
 
-i.e. data -> encoder^dag -> head (``bridge.discriminative``) with the head the same template
+(``bridge.circuits.TwoBlock``), i.e. data -> encoder^dag -> head with the head the same template
 as the encoder. ``V`` has ``2 * depth`` layers. This is one identity block in the sense of
 Grant et al. (Quantum 3, 214 (2019), arXiv:1903.05076): ``h = e`` gives ``V = I`` for any e.
 
@@ -34,6 +34,7 @@ import numpy as np
 from pennylane import numpy as pnp
 
 from thermoseed.bridge.ansatz import Ansatz, make_ansatz
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.plateau.gradients import CircuitGradient, active_mask
@@ -77,16 +78,17 @@ def small_angle(scale: float = SMALL_ANGLE_SCALE) -> Strategy:
 
 def identity_blocks() -> Strategy:
     """Grant et al. (arXiv:1903.05076): ``e`` uniform on ``[0, 2 pi)`` and ``h = e``, so
-    ``V = U(h) U(e)^dag = I`` at initialisation. Needs the pair shape ``(2, *U.shape)``."""
+    ``V = U(h) U(e)^dag = I`` at initialisation. Needs the flat parameters of a two-block
+    circuit whose blocks share one template (an even length ``2 k``)."""
 
     def init(shape, rng):
-        if len(shape) < 2 or shape[0] != 2:
+        if len(shape) != 1 or shape[0] % 2:
             raise ThermoseedError(
-                f"identity_blocks needs a parameter pair of shape (2, ...), got {shape}; use "
-                "the probe circuit V = U(h) U(e)^dag (bridge.plateau.probe_circuit)"
+                f"identity_blocks needs the flat parameters [e, h] of a two-block circuit with "
+                f"one template for both blocks (even length), got shape {shape}"
             )
-        e = rng.uniform(0.0, 2 * np.pi, size=shape[1:])
-        return np.stack([e, e])
+        e = rng.uniform(0.0, 2 * np.pi, size=shape[0] // 2)
+        return np.concatenate([e, e])
 
     return Strategy("identity_blocks", init, {})
 
@@ -149,9 +151,10 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
                perturbation: float = 0.0) -> Strategy:
     """Warm start from an independent pre-training run per draw.
 
-    ``init((2, *U.shape), rng)``: bootstrap-resample the training states (B draws with
-    replacement, from rng), fit ``VisibleGibbsModel`` on them, ``compile_latent`` into the
-    encoder (compile seed from rng), ``warm_start`` (head = zeros = identity), then add
+    ``init((n_params,), rng)`` (flat ``[e, h]``): bootstrap-resample the training states
+    (B draws with replacement, from rng), fit ``VisibleGibbsModel`` on them,
+    ``compile_latent`` into the encoder (compile seed from rng), ``warm_start``
+    (head = zeros = identity), then add
     ``N(0, perturbation^2)`` to every angle when ``perturbation > 0``.
     """
     settings = PretrainSettings() if settings is None else settings
@@ -159,14 +162,15 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
     terms = graph_terms(n, settings.graph, fields=settings.fields,
                         couplings=tuple(settings.couplings))
     states = np.asarray(data.train_states)
+    blocks = TwoBlock(encoder, head)
     pert = float(perturbation)
     if not np.isfinite(pert) or pert < 0:
         raise ThermoseedError(f"perturbation must be a finite number >= 0, got {perturbation!r}")
 
     def init(shape, rng):
-        if tuple(shape) != (2, *encoder.shape):
+        if tuple(shape) != blocks.shape:
             raise ThermoseedError(
-                f"pretrained init is for the pair shape {(2, *encoder.shape)}, got {shape}"
+                f"pretrained init is for the flat shape {blocks.shape}, got {shape}"
             )
         boot = rng.integers(0, len(states), size=len(states))
         kind = "states" if states.ndim == 2 else "density"
@@ -175,8 +179,7 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
         result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
                                 restarts=int(settings.restarts),
                                 max_iter=int(settings.compile_iter))
-        flat = np.asarray(warm_start(result, head=head), dtype=float)
-        out = flat.reshape(shape)
+        out = np.asarray(warm_start(result, head=head), dtype=float)
         if pert > 0:
             out = out + pert * rng.standard_normal(shape)
         return out
@@ -278,12 +281,11 @@ def _resolve(strategy, unit: Ansatz, data, scale, settings) -> Strategy:
                          settings=settings)
 
 
-def _classifier_value_and_grad(circuit, pair: np.ndarray, data: LabelledData):
-    flat = pnp.array(circuit.join(pnp.array(pair[0]), pnp.array(pair[1])), requires_grad=True)
+def _classifier_value_and_grad(circuit, params: np.ndarray, data: LabelledData):
     value, grad = autograd.value_and_grad(
-        lambda p: circuit.loss(p, data.train_states, data.train_labels))(flat)
-    enc, head = circuit.split(pnp.array(grad))
-    return float(value), np.stack([np.asarray(enc, dtype=float), np.asarray(head, dtype=float)])
+        lambda p: circuit.loss(p, data.train_states, data.train_labels))(
+        pnp.array(params, requires_grad=True))
+    return float(value), np.asarray(grad, dtype=float)
 
 
 def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str = "local",
@@ -309,18 +311,18 @@ def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str =
     strat = _resolve(strategy, unit, data, scale, settings)
     if cost == "classifier":
         circuit = DownstreamCircuit(unit, unit, tuple(readout))
-        active, used = np.ravel(active_mask(unit, (2, *unit.shape))), "backprop/autograd"
+        active, used = active_mask(circuit.blocks), "backprop/autograd"
     else:
         engine = CircuitGradient(unit, cost, method)
         active, used = np.ravel(engine.active), engine.method
     out = []
     for seed in seeds:
         init_rng, input_rng, _ = _streams(seed)
-        pair = np.asarray(strat((2, *unit.shape), init_rng), dtype=float)
+        params = np.asarray(strat((2 * unit.n_params,), init_rng), dtype=float)
         if cost == "classifier":
-            value, grad = _classifier_value_and_grad(circuit, pair, data)
+            value, grad = _classifier_value_and_grad(circuit, params, data)
         else:
-            value, grad = engine(pair, product_state(n, input_rng))
+            value, grad = engine(params, product_state(n, input_rng))
         out.append(ProbeResult(strat.name, cost, n, depth, int(seed), unit.name, value,
                                np.ravel(grad), active, used))
     return out
@@ -364,10 +366,10 @@ def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
     unit = probe_circuit(template, n, depth)
     init_rng, _, batch_rng = _streams(seed)
     strat = _resolve(strategy, unit, data, scale, settings)
-    pair = np.asarray(strat((2, *unit.shape), init_rng), dtype=float)
     circuit = DownstreamCircuit(unit, unit, tuple(readout))
+    params = np.asarray(strat(circuit.blocks.shape, init_rng), dtype=float)
     run = train_classifier(
-        circuit, np.asarray(circuit.join(pair[0], pair[1]), dtype=float), data.train_states,
+        circuit, params, data.train_states,
         data.train_labels, data.test_states, data.test_labels, steps=int(steps),
         batch_size=len(data.train_states) if batch_size is None else int(batch_size),
         learning_rate=learning_rate, seed=int(batch_rng.integers(2**31)))
