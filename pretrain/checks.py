@@ -1,10 +1,11 @@
-"""Argument checks shared by the scenario generators (one place, one message style)."""
+"""Argument checks (integers, seeds, real numbers): one place, one message style, used by
+every layer."""
 
 from __future__ import annotations
 
 import numpy as np
 
-from thermoseed.pretrain.errors import ThermoseedError
+from .errors import ThermoseedError
 
 
 def real_number(value, what: str) -> float:

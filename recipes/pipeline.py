@@ -31,6 +31,7 @@ from thermoseed.bridge.plateau.report import write_report
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.bridge.warm_start import warm_start
 from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
+from thermoseed.pretrain.data import stratified_split
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
 from thermoseed.recipes.config import fingerprint
@@ -107,14 +108,8 @@ def classification_data(scenario: str, n: int, samples: int, test_fraction: floa
         batch = probe_drift_data(n, samples, seed=seed)
         states = batch.density
     labels = np.asarray(batch.labels)
-    rng = np.random.default_rng(seed)
-    test = []
-    for label in np.unique(labels):
-        members = rng.permutation(np.flatnonzero(labels == label))
-        test.extend(members[: max(1, int(round(test_fraction * len(members))))])
-    is_test = np.zeros(len(labels), bool)
-    is_test[test] = True
-    return LabelledData(states[~is_test], labels[~is_test], states[is_test], labels[is_test])
+    train, test = stratified_split(labels, test_fraction, seed)
+    return LabelledData(states[train], labels[train], states[test], labels[test])
 
 
 def _training_data(data: LabelledData):

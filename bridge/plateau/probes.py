@@ -40,6 +40,7 @@ from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.plateau.gradients import CircuitGradient, active_mask
 from thermoseed.bridge.warm_start import warm_start
 from thermoseed.pretrain import VisibleGibbsModel, as_training_data, graph_terms
+from thermoseed.pretrain.checks import integer_in, seed_value
 from thermoseed.pretrain.errors import ThermoseedError
 
 COSTS = ("local", "global", "classifier")
@@ -262,16 +263,12 @@ class ProbeResult(NamedTuple):
 def _streams(seed: int) -> tuple[np.random.Generator, ...]:
     """Independent generators for the initial angles, the input state and the minibatch
     order of one seed."""
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise ThermoseedError(f"seed must be a non-negative integer, got {seed!r}")
-    return tuple(np.random.default_rng(s) for s in np.random.SeedSequence(int(seed)).spawn(3))
+    seed = seed_value(seed)
+    return tuple(np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(3))
 
 
 def _check_size(n_qubits: int, depth: int) -> tuple[int, int]:
-    for value, what, low in ((n_qubits, "n_qubits", 2), (depth, "depth", 1)):
-        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
-            raise ThermoseedError(f"{what} must be an integer >= {low}, got {value!r}")
-    return int(n_qubits), int(depth)
+    return integer_in(n_qubits, "n_qubits", 2), integer_in(depth, "depth", 1)
 
 
 def _resolve(strategy, unit: Ansatz, data, scale, settings) -> Strategy:
@@ -358,8 +355,7 @@ def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
     ``bridge.discriminative.train_classifier`` (Adam; full batch unless ``batch_size``),
     recording the training loss and the held-out accuracy at every step."""
     n, depth = _check_size(n_qubits, depth)
-    if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1:
-        raise ThermoseedError(f"steps must be a positive integer, got {steps!r}")
+    integer_in(steps, "steps", 1)
     if not isinstance(data, LabelledData):
         raise ThermoseedError("train_curve needs data=LabelledData(...) with a held-out set")
     data.check(n)

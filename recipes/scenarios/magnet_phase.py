@@ -24,16 +24,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from thermoseed.pretrain.engines import DenseEngine
-from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.pretrain.linalg import eigh
-from thermoseed.pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
-from thermoseed.recipes.scenarios.checks import (
+from thermoseed.pretrain.checks import (
+    integer_in,
     inverse_temperature,
     qubit_count,
     real_number,
     seed_value,
 )
+from thermoseed.pretrain.data import stratified_split
+from thermoseed.pretrain.engines import DenseEngine
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.linalg import eigh
+from thermoseed.pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 from thermoseed.recipes.scenarios.record import ScenarioRecord
 
 #: Largest chain handled (dense 2^n x 2^n diagonalisation per sample).
@@ -176,9 +178,7 @@ def magnet_phase_data(
     :func:`ground_state` (``beta=None``) or Gibbs states by :func:`gibbs_state`.
     """
     n = _check_qubits(n_qubits)
-    if isinstance(n_samples, bool) or not isinstance(n_samples, (int, np.integer)) \
-            or n_samples < 1:
-        raise ThermoseedError(f"n_samples = {n_samples!r} must be a positive integer")
+    integer_in(n_samples, "n_samples", 1)
     j = _check_coupling(coupling)
     lo, hi, gap = _check_fields(field_range, gap)
     beta = None if beta is None else _check_beta(beta)
@@ -201,25 +201,9 @@ def train_test_split(
 ) -> tuple[MagnetPhaseData, MagnetPhaseData]:
     """Seeded, label-stratified split into ``(train, test)``.
 
-    One permutation of the samples; from each label class the first
-    ``round(test_fraction * count)`` permuted members go to the test set, the rest (in permuted
-    order) to the training set.
+    ``thermoseed.pretrain.data.stratified_split`` on the labels.
     """
-    if not 0 < real_number(test_fraction, "test_fraction") < 1:
-        raise ThermoseedError(f"test_fraction = {test_fraction!r} must lie strictly in (0, 1)")
-    rng = np.random.default_rng(seed_value(seed))
-    order = rng.permutation(len(data))
-    test_mask = np.zeros(len(data), dtype=bool)
-    for label in np.unique(data.labels):
-        members = order[data.labels[order] == label]
-        test_mask[members[: int(round(test_fraction * len(members)))]] = True
-    train_idx = order[~test_mask[order]]
-    test_idx = order[test_mask[order]]
-    if len(train_idx) == 0 or len(test_idx) == 0:
-        raise ThermoseedError(
-            f"test_fraction = {test_fraction} leaves an empty train or test set for "
-            f"{len(data)} samples; use more samples or a fraction nearer 0.5"
-        )
+    train_idx, test_idx = stratified_split(data.labels, test_fraction, seed)
     return data.subset(train_idx), data.subset(test_idx)
 
 

@@ -17,10 +17,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from thermoseed.pretrain.checks import inverse_temperature, qubit_count, real_number
 from thermoseed.pretrain.engines import DenseEngine
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
-from thermoseed.recipes.scenarios.checks import inverse_temperature, qubit_count, real_number
 from thermoseed.recipes.scenarios.record import ScenarioRecord
 
 #: Largest chain handled (dense 2^n x 2^n diagonalisation).

@@ -20,8 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from thermoseed.pretrain.checks import integer_in, real_number
 from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.recipes.scenarios.checks import integer_in, real_number
 from thermoseed.recipes.scenarios.record import ScenarioRecord
 
 #: Largest probe handled (dense 2^n x 2^n density matrices per sample).
