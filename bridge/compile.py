@@ -27,7 +27,12 @@ from tqdm.auto import tqdm
 from thermoseed.bridge.ansatz import Ansatz, ansatz_columns
 from thermoseed.pretrain.diagnostics import fidelity, relative_entropy, trace_distance
 from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
-from thermoseed.pretrain.linalg import ENTROPY_FLOOR, entropy_of_spectrum, log_sum_exp_neg
+from thermoseed.pretrain.linalg import (
+    ENTROPY_FLOOR,
+    entropy_of_spectrum,
+    log_sum_exp_neg,
+    von_neumann_entropy,
+)
 from thermoseed.pretrain.optim import minimize
 
 LATENT_KINDS = ("spectrum", "product")
@@ -58,6 +63,17 @@ class CompileReport(NamedTuple):
     restarts: int
 
 
+def compiled_state(form: str, ansatz: Ansatz, params, latent: Latent | None,
+                   n_visible: int) -> np.ndarray:
+    """Latent form ``U diag(q) U^dag``; purified form ``Tr_anc W|0><0|W^dag``."""
+    if form == "latent":
+        rows = np.asarray(ansatz_columns(ansatz, params, latent.basis))
+        return (rows.T * latent.probs) @ rows.conj()
+    psi = np.asarray(ansatz_columns(ansatz, params, [0]))[0]
+    m = psi.reshape(2**n_visible, -1)
+    return m @ m.conj().T
+
+
 @dataclass
 class CompileResult:
     """Output of ``compile_latent`` / ``compile_purified``.
@@ -85,12 +101,7 @@ class CompileResult:
 
     def state(self) -> np.ndarray:
         """The compiled density matrix on the visible wires."""
-        if self.form == "latent":
-            rows = np.asarray(ansatz_columns(self.ansatz, self.params, self.latent.basis))
-            return (rows.T * self.latent.probs) @ rows.conj()
-        psi = np.asarray(ansatz_columns(self.ansatz, self.params, [0]))[0]
-        m = psi.reshape(2**self.n_visible, -1)
-        return m @ m.conj().T
+        return compiled_state(self.form, self.ansatz, self.params, self.latent, self.n_visible)
 
     def preparation(self, seed: int | None = None):
         """A quantum function preparing the compiled state on wires ``0..n-1``.
@@ -237,20 +248,22 @@ def _optimise(objective, inits, *, max_iter, tol, progress, desc):
     return best
 
 
-def _report(result: CompileResult, objective: float, floor: float, converged: bool,
-            restarts: int, model, data_rho) -> CompileReport:
-    compiled = result.state()
-    sigma = model.state()
+def _report(compiled: np.ndarray, objective: float, floor: float, converged: bool,
+            restarts: int, gibbs, h: np.ndarray, data_rho) -> CompileReport:
+    """Distances of the compiled state to the model (from the one engine evaluation
+    ``gibbs``) and to the data."""
     data = (None, None, None)
     if data_rho is not None:
         data = (relative_entropy(data_rho, compiled), fidelity(compiled, data_rho),
                 trace_distance(compiled, data_rho))
-    # S(rho||sigma) = -S(rho) + Tr(rho H) + log Z: exact for a Gibbs state, whose dense sigma
-    # can hold eigenvalues that underflowed to ~0 at low temperature (the dense formula then
+    # S(c||sigma) = -S(c) + Tr(c H) + log Z: exact for a Gibbs state, whose dense sigma can
+    # hold eigenvalues that underflowed to ~0 at low temperature (the dense formula then
     # reports inf although the true value is finite)
+    model_rel = -von_neumann_entropy(compiled) + float(np.real(np.sum(compiled.T * h))) \
+        + gibbs.log_z
     return CompileReport(
-        objective, floor, model.relative_entropy(compiled), fidelity(compiled, sigma),
-        trace_distance(compiled, sigma), *data, converged, restarts)
+        objective, floor, max(0.0, model_rel), fidelity(compiled, gibbs.state),
+        trace_distance(compiled, gibbs.state), *data, converged, restarts)
 
 
 def compile_latent(
@@ -266,9 +279,10 @@ def compile_latent(
     if latent not in LATENT_KINDS:
         raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
     n = _check_model(model, ansatz, ansatz.n_wires)
+    data_rho = _data_rho(data, n)
     h = np.asarray(model.hamiltonian())
-    energies = np.asarray(model.spectrum())
-    log_z, _ = log_sum_exp_neg(energies)
+    gibbs = model.evaluate(want_state=True)  # the one eigendecomposition of H
+    energies, log_z = np.asarray(gibbs.energies), gibbs.log_z
 
     npar = ansatz.n_params
     if latent == "spectrum":
@@ -297,11 +311,10 @@ def compile_latent(
         qx, _ = _bernoulli_product(best.x[npar:], n)
         keep = np.flatnonzero(np.asarray(qx) > 0)
         lat = Latent("product", keep, np.asarray(qx)[keep] / np.sum(qx), 1.0)
-    result = CompileResult("latent", ansatz, params, lat, None, n, list(model.terms_.labels),
-                           np.asarray(model.coef_, float), best.history["loss"])
-    result.report = _report(result, best.loss, floor, best.converged, restarts, model,
-                            _data_rho(data))
-    return result
+    report = _report(compiled_state("latent", ansatz, params, lat, n), best.loss, floor,
+                     best.converged, restarts, gibbs, h, data_rho)
+    return CompileResult("latent", ansatz, params, lat, report, n, list(model.terms_.labels),
+                         np.asarray(model.coef_, float), best.history["loss"])
 
 
 def compile_purified(
@@ -318,8 +331,10 @@ def compile_purified(
             f"the purified form needs ancilla wires: the ansatz has {ansatz.n_wires} wires for "
             f"{n} visible qubits; use an ansatz on {2 * n} wires"
         )
+    data_rho = _data_rho(data, n)
     h = np.asarray(model.hamiltonian())
-    log_z = model.log_partition()
+    gibbs = model.evaluate(want_state=True)  # the one eigendecomposition of H
+    log_z = gibbs.log_z
     dv = 2**n
 
     def objective(x):
@@ -330,17 +345,23 @@ def compile_purified(
 
     best = _optimise(objective, _restart_inits(ansatz, 0, restarts, seed, init_scale),
                      max_iter=max_iter, tol=tol, progress=progress, desc="compile")
-    result = CompileResult("purified", ansatz, best.x.reshape(ansatz.shape), None, None, n,
-                           list(model.terms_.labels), np.asarray(model.coef_, float),
-                           best.history["loss"])
-    result.report = _report(result, best.loss, 0.0, best.converged, restarts, model,
-                            _data_rho(data))
-    return result
+    params = best.x.reshape(ansatz.shape)
+    report = _report(compiled_state("purified", ansatz, params, None, n), best.loss, 0.0,
+                     best.converged, restarts, gibbs, h, data_rho)
+    return CompileResult("purified", ansatz, params, None, report, n,
+                         list(model.terms_.labels), np.asarray(model.coef_, float),
+                         best.history["loss"])
 
 
-def _data_rho(data):
+def _data_rho(data, n_qubits: int):
+    """The data's density matrix, checked against the model's qubit count before any work."""
     if data is None:
         return None
     from thermoseed.pretrain.data import as_training_data, square_array_kind
 
-    return as_training_data(data, kind=square_array_kind(data)).rho
+    rho = as_training_data(data, kind=square_array_kind(data)).rho
+    if rho.shape[0] != 2**n_qubits:
+        raise ThermoseedError(
+            f"the data are {int(np.log2(rho.shape[0]))}-qubit states but the model has "
+            f"{n_qubits} qubits; pass the data the model was fitted on")
+    return rho

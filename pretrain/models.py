@@ -196,7 +196,10 @@ class VisibleGibbsModel(ParamsMixin):
         return model
 
     # ------------------------------------------------------------------ fitted queries
-    def _evaluate(self, want_state: bool = False):
+    def evaluate(self, want_state: bool = False):
+        """One engine evaluation at ``coef_``: ``GibbsEvaluation(log_z, moments, energies,
+        state)`` (``state`` only when asked). Callers needing several of these take them all
+        from one call: each call is one eigendecomposition on the dense engine."""
         check_is_fitted(self, "coef_")
         if not hasattr(self, "_engine"):
             self._engine = make_engine(self.engine, self.terms_)
@@ -209,19 +212,19 @@ class VisibleGibbsModel(ParamsMixin):
 
     def state(self) -> np.ndarray:
         """The model density matrix ``sigma = exp(-H)/Z`` (complex, 2^n x 2^n)."""
-        return self._evaluate(want_state=True).state.astype(complex)
+        return self.evaluate(want_state=True).state.astype(complex)
 
     def moments(self) -> np.ndarray:
         """Model moments ``<P_j>_sigma``."""
-        return self._evaluate().moments
+        return self.evaluate().moments
 
     def log_partition(self) -> float:
         """``log Z(theta)``."""
-        return self._evaluate().log_z
+        return self.evaluate().log_z
 
     def spectrum(self) -> np.ndarray:
         """Eigenvalues of H(theta), ascending."""
-        return self._evaluate().energies
+        return self.evaluate().energies
 
     def relative_entropy(self, rho) -> float:
         """``S(rho||sigma) = -S(rho) + Tr(rho H) + log Z`` for any density matrix rho."""

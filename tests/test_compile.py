@@ -493,3 +493,20 @@ def test_compile_rejects_bad_input(model2):
         compile_latent(model2, make_ansatz("strong", 2, 1), restarts=0)
     with pytest.raises(ThermoseedError, match="fitted"):
         compile_latent(VisibleGibbsModel(["ZI", "IZ"]), make_ansatz("strong", 2, 1))
+
+
+def test_compile_takes_one_engine_evaluation(model2, monkeypatch):
+    """The compile reads spectrum, log Z and sigma from one evaluation (one eigh of H), and
+    refuses data of another qubit count before any optimisation."""
+    from thermoseed.pretrain.engines.dense import DenseEngine
+
+    calls = []
+    original = DenseEngine.evaluate
+    monkeypatch.setattr(DenseEngine, "evaluate",
+                        lambda self, *a, **k: calls.append(1) or original(self, *a, **k))
+    fresh = VisibleGibbsModel.from_coefficients(model2.terms_, model2.coef_)
+    compile_latent(fresh, make_ansatz("strong", 2, 2), restarts=1, max_iter=5)
+    assert len(calls) == 1
+    with pytest.raises(ThermoseedError, match="3-qubit states but the model has 2"):
+        compile_latent(fresh, make_ansatz("strong", 2, 2), data=random_density(8, np.random.default_rng(0)))
+    assert len(calls) == 1
