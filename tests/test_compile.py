@@ -508,5 +508,6 @@ def test_compile_takes_one_engine_evaluation(model2, monkeypatch):
     compile_latent(fresh, make_ansatz("strong", 2, 2), restarts=1, max_iter=5)
     assert len(calls) == 1
     with pytest.raises(ThermoseedError, match="3-qubit states but the model has 2"):
-        compile_latent(fresh, make_ansatz("strong", 2, 2), data=random_density(8, np.random.default_rng(0)))
+        compile_latent(fresh, make_ansatz("strong", 2, 2),
+                       data=random_density(8, np.random.default_rng(0)))
     assert len(calls) == 1
