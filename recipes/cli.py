@@ -1,4 +1,4 @@
-"""The ``thermoseed`` command line (also ``python -m bridge``).
+"""The ``thermoseed`` command line (also ``python -m thermoseed.recipes``).
 
 Parsing lives here; every subcommand is a thin wrapper over a public library call and
 imports the library late, so ``--help`` is instant. User errors (``ThermoseedError``) print
@@ -23,6 +23,26 @@ def _positive_int(text: str) -> int:
     if value < 1:
         raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
     return value
+
+
+def _nonneg_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}")
+    return value
+
+
+def _version() -> str:
+    """The installed distribution's version (no library import: ``--help`` stays instant)."""
+    from importlib import metadata
+
+    try:
+        return metadata.version("thermoseed")
+    except metadata.PackageNotFoundError:  # running from a source tree without install
+        return "unknown"
 
 
 def _nonneg_float(text: str) -> float:
@@ -228,6 +248,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "model to quantum data, compile it into a circuit, warm-start your "
                     "classifier, and measure plateau behaviour.",
     )
+    parser.add_argument("--version", action="version", version=f"thermoseed {_version()}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     p = _subcommand(
@@ -303,7 +324,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--costs", type=_word_list, default=["local", "global"],
                    help="local, global, classifier (default local,global)")
     p.add_argument("--seeds", type=_positive_int, default=20, help="seeds per point")
-    p.add_argument("--seed", type=int, default=0, help="first seed")
+    p.add_argument("--seed", type=_nonneg_int, default=0, help="first seed")
     p.add_argument("--depths", type=_int_list, help="layers per block (default: n)")
     p.add_argument("--template", choices=["soft", "strong", "entangler", "ladder"],
                    default="soft")
@@ -331,9 +352,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("recipe", help="built-in recipe name or path to a .toml file")
     p.add_argument("--out", help="run folder (default thermoseed-runs/<name>)")
     p.add_argument("--qubits", type=_positive_int, help="override the recipe's qubit count")
-    p.add_argument("--seed", type=int, help="override the recipe's seed")
+    p.add_argument("--seed", type=_nonneg_int, help="override the recipe's seed")
     p.add_argument("--quick", action="store_true", help="smallest settings (smoke run)")
-    p.add_argument("--workers", type=int, default=0, help="sweep worker processes (0 = all)")
+    p.add_argument("--workers", type=_positive_int,
+                   help="local processes for the sweep stage (default all cores)")
 
     p = _subcommand(
         sub, "inspect", _cmd_inspect, help="show what is inside a model, compile or result file",

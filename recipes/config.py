@@ -75,12 +75,16 @@ def load_recipe(source, *, qubits: int | None = None, seed: int | None = None,
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise ThermoseedError(f"recipe {str(path)!r} is not valid TOML: {err}") from err
-    recipe = validate_recipe(raw, where=str(path))
-    if qubits is not None:
-        recipe["data"]["qubits"] = int(qubits)
-        recipe["compile"]["depth"] = None
+    raw = copy.deepcopy(raw)
+    if qubits is not None:  # overrides go through the same validation as the file
+        raw.setdefault("data", {})["qubits"] = qubits
+        raw.setdefault("compile", {})
+        if "depth" not in raw["compile"]:
+            raw["compile"]["depth"] = None  # the default depth follows the new size
     if seed is not None:
-        recipe["seed"] = int(seed)
+        raw["seed"] = seed
+    recipe = validate_recipe(raw, where=f"{path} with command-line overrides"
+                             if qubits is not None or seed is not None else str(path))
     if quick:
         for section, values in QUICK.items():
             if section in recipe:

@@ -146,7 +146,8 @@ def _pretrain_chain(recipe: dict, out: Path, run: dict, terms, td, progress: boo
     return model, result
 
 
-def run_classification(recipe: dict, out: Path, run: dict, progress: bool, workers: int):
+def run_classification(recipe: dict, out: Path, run: dict, progress: bool,
+                       workers: int | None):
     data_cfg, model_cfg, comp = recipe["data"], recipe["model"], recipe["compile"]
     n, seed = data_cfg["qubits"], recipe["seed"]
     plateau, train = recipe["plateau"], recipe["train"]
@@ -175,7 +176,7 @@ def run_classification(recipe: dict, out: Path, run: dict, progress: bool, worke
                       template=comp["template"], settings=settings)
     with _Stage(run, out, "sweep"):
         result = run_sweep(jobs, out / "results.jsonl", data=data,
-                           workers=workers or None, progress=progress)
+                           workers=workers, progress=progress)
     run["files"]["results"] = "results.jsonl"
     run["sweep"] = {"jobs": len(jobs), "ran": result.ran, "skipped": result.skipped}
     with _Stage(run, out, "report"):
@@ -223,7 +224,8 @@ def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
                          "report": "report.md"})
 
 
-def run_recipe(recipe: dict, out, *, progress: bool = True, workers: int = 0) -> dict[str, Any]:
+def run_recipe(recipe: dict, out, *, progress: bool = True,
+               workers: int | None = None) -> dict[str, Any]:
     """Run a validated recipe (``load_recipe``) into folder ``out``; returns run.json's data."""
     out = Path(out)
     run = _claim_folder(out, recipe)

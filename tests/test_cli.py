@@ -251,3 +251,22 @@ def test_readme_quickstart_main_job_runs(tmp_path):
     assert proc.returncode == 0, proc.stderr[-2000:]
     report = tmp_path / "thermoseed-runs" / "magnet-phase" / "report.md"
     assert "In plain words" in report.read_text()
+
+
+def test_qubit_override_goes_through_the_file_rules(tmp_path):
+    """--qubits is validated like the same value in a TOML file, and keeps an explicit depth."""
+    for bad in (11, 1):
+        with pytest.raises(ThermoseedError, match="qubits must be an integer in 2..10"):
+            load_recipe("magnet-phase", qubits=bad)
+    assert load_recipe("magnet-phase", qubits=6)["compile"]["depth"] == 6  # default follows n
+    path = tmp_path / "mine.toml"
+    path.write_text('scenario = "magnet-phase"\n[compile]\ndepth = 2\n')
+    assert load_recipe(path, qubits=6)["compile"]["depth"] == 2
+    with pytest.raises(ThermoseedError, match="seed must be a non-negative integer"):
+        load_recipe(path, seed=-1)
+
+
+def test_version_flag(capsys):
+    with pytest.raises(SystemExit) as stop:
+        main(["--version"])
+    assert stop.value.code == 0 and capsys.readouterr().out.startswith("thermoseed ")
