@@ -230,7 +230,7 @@ def _cmd_run(args) -> int:
     from thermoseed.recipes.pipeline import run_recipe
 
     recipe = load_recipe(args.recipe, qubits=args.qubits, seed=args.seed, quick=args.quick)
-    out = Path(args.out) if args.out else Path("thermoseed-runs") / recipe["name"]
+    out = Path(args.out) if args.out else Path("thermoseed-runs") / recipe.name
     summary = run_recipe(recipe, out, progress=not args.quiet, workers=args.workers)
     print(_json(summary))
     _say(args, f"report: {out / 'report.md'}")

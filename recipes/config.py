@@ -1,16 +1,22 @@
-"""Recipe files: TOML with a fixed schema, validated before any work starts.
+"""Recipes: a TOML file read once into a typed, frozen ``Recipe``, validated before any work.
 
 Top level: ``name``, ``title``, ``scenario`` (magnet-phase | probe-drift | neighbour-xxz),
 ``seed``; sections ``[data]``, ``[model]``, ``[compile]`` and, by scenario, ``[train]`` +
 ``[plateau]`` (classification) or ``[eigensolver]`` (neighbour-xxz). Built-in recipes are
-the ``.toml`` files shipped in ``recipes/`` and are found by name.
+the ``.toml`` files shipped in ``thermoseed.recipes`` and are found by name. Command-line
+overrides (``--qubits``, ``--seed``) go through the same validation as the file, so a value
+refused in a file is refused on the command line too.
 """
 
 from __future__ import annotations
 
 import copy
+import dataclasses
 import hashlib
 import json
+import math
+import re
+from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 from typing import Any
@@ -24,6 +30,106 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
 
 SCENARIOS = ("magnet-phase", "probe-drift", "neighbour-xxz")
 BUILTIN = SCENARIOS
+#: Initialisation strategies a recipe may compare (names of ``bridge.plateau.probes``).
+STRATEGY_NAMES = ("pretrained", "pretrained_perturbed", "class_models", "uniform",
+                  "small_angle", "identity_blocks")
+TEMPLATE_NAMES = ("soft", "strong", "entangler", "ladder")
+GRAPH_NAMES = ("line", "ring", "complete")
+COST_NAMES = ("local", "global", "classifier")
+#: Upper bounds that keep a recipe within minutes-to-hours on a laptop (dense simulation).
+MAX_QUBITS, MAX_PLATEAU_QUBITS = 10, 12
+MAX_SAMPLES, MAX_SEEDS, MAX_STEPS, MAX_DEPTH, MAX_ITER = 4096, 1000, 100_000, 64, 100_000
+
+
+@dataclass(frozen=True)
+class DataSettings:
+    """``[data]``: ``qubits``; classification: ``samples``, ``test_fraction``;
+    neighbour-xxz: ``source_delta``, ``target_delta``, ``beta``."""
+
+    qubits: int
+    samples: int | None = None
+    test_fraction: float | None = None
+    source_delta: float | None = None
+    target_delta: float | None = None
+    beta: float | None = None
+
+
+@dataclass(frozen=True)
+class ModelSettings:
+    """``[model]``: the Gibbs model's term set on a graph and its L2 penalty."""
+
+    graph: str
+    fields: str
+    couplings: tuple[str, ...]
+    l2: float
+
+
+@dataclass(frozen=True)
+class CompileSettings:
+    """``[compile]``: downstream template, layers per block (default: the qubit count)."""
+
+    template: str
+    depth: int
+    restarts: int
+    max_iter: int
+
+
+@dataclass(frozen=True)
+class TrainSettings:
+    """``[train]``: training curves from each strategy at the recipe's size."""
+
+    strategies: tuple[str, ...]
+    seeds: int
+    steps: int
+    learning_rate: float
+    target_accuracy: float
+
+
+@dataclass(frozen=True)
+class PlateauSettings:
+    """``[plateau]``: gradient probes over qubit counts."""
+
+    sizes: tuple[int, ...]
+    strategies: tuple[str, ...]
+    seeds: int
+    costs: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class EigensolverSettings:
+    """``[eigensolver]``: runs at the neighbouring anisotropy from each strategy."""
+
+    strategies: tuple[str, ...]
+    seeds: int
+    steps: int
+    learning_rate: float
+    tolerance: float
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """A validated recipe; build it with ``load_recipe`` or ``validate_recipe``."""
+
+    name: str
+    title: str
+    scenario: str
+    seed: int
+    data: DataSettings
+    model: ModelSettings
+    compile: CompileSettings
+    train: TrainSettings | None = None
+    plateau: PlateauSettings | None = None
+    eigensolver: EigensolverSettings | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain JSON-able form (run.json); sections that do not apply are left out."""
+        out = dataclasses.asdict(self)
+        return {k: v for k, v in out.items() if v is not None}
+
+    def fingerprint(self) -> str:
+        """Short hash of the settings (identifies a run folder's recipe)."""
+        return hashlib.sha256(json.dumps(self.as_dict(), sort_keys=True).encode()).hexdigest()[:16]
+
 
 _STRATEGIES = ["pretrained", "uniform", "small_angle", "identity_blocks"]
 _COMMON = {
@@ -64,8 +170,8 @@ def _builtin_path(name: str) -> Path:
 
 
 def load_recipe(source, *, qubits: int | None = None, seed: int | None = None,
-                quick: bool = False) -> dict[str, Any]:
-    """Read and validate a recipe (built-in name or ``.toml`` path); apply overrides."""
+                quick: bool = False) -> Recipe:
+    """Read a recipe (built-in name or ``.toml`` path), apply overrides, validate it all."""
     path = _builtin_path(source) if source in BUILTIN else Path(source)
     if not path.is_file():
         raise ThermoseedError(
@@ -76,27 +182,26 @@ def load_recipe(source, *, qubits: int | None = None, seed: int | None = None,
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise ThermoseedError(f"recipe {str(path)!r} is not valid TOML: {err}") from err
     raw = copy.deepcopy(raw)
-    if qubits is not None:  # overrides go through the same validation as the file
+    if qubits is not None:
         raw.setdefault("data", {})["qubits"] = qubits
-        raw.setdefault("compile", {})
-        if "depth" not in raw["compile"]:
-            raw["compile"]["depth"] = None  # the default depth follows the new size
     if seed is not None:
         raw["seed"] = seed
-    recipe = validate_recipe(raw, where=f"{path} with command-line overrides"
-                             if qubits is not None or seed is not None else str(path))
     if quick:
+        defaults = DEFAULTS.get(raw.get("scenario"), {})
         for section, values in QUICK.items():
-            if section in recipe:
-                recipe[section].update({k: v for k, v in values.items()
-                                        if k in recipe[section]})
-    if recipe["compile"]["depth"] is None:
-        recipe["compile"]["depth"] = recipe["data"]["qubits"]
-    return recipe
+            if section in defaults:
+                raw.setdefault(section, {}).update(
+                    {k: v for k, v in values.items() if k in defaults[section]})
+    where = str(path) + (" with command-line overrides" if qubits is not None or seed is not None
+                         else "")
+    return validate_recipe(raw, where=where)
 
 
-def validate_recipe(raw: dict, *, where: str = "recipe") -> dict[str, Any]:
-    """Fill defaults and check names and types; unknown keys are errors (typos stop early)."""
+def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
+    """Fill defaults, check names, types and ranges; unknown keys are errors (typos stop
+    early). Returns the typed ``Recipe``."""
+    if not isinstance(raw, dict):
+        raise ThermoseedError(f"{where}: a recipe is a TOML table, got {type(raw).__name__}")
     scenario = raw.get("scenario")
     if scenario not in SCENARIOS:
         raise ThermoseedError(f"{where}: scenario must be one of {SCENARIOS}, got {scenario!r}")
@@ -105,33 +210,90 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> dict[str, Any]:
     unknown = set(raw) - top
     if unknown:
         raise ThermoseedError(f"{where}: unknown keys {sorted(unknown)}; allowed: {sorted(top)}")
-    recipe: dict[str, Any] = {
-        "name": str(raw.get("name", scenario)), "title": str(raw.get("title", scenario)),
-        "scenario": scenario, "seed": raw.get("seed", 0),
-    }
-    if not isinstance(recipe["seed"], int) or recipe["seed"] < 0:
-        raise ThermoseedError(f"{where}: seed must be a non-negative integer")
-    for section, values in defaults.items():
-        given = raw.get(section, {})
-        if not isinstance(given, dict):
-            raise ThermoseedError(f"{where}: [{section}] must be a table")
-        bad = set(given) - set(values)
-        if bad:
+    sections = {section: _merge(raw.get(section, {}), values, section, where)
+                for section, values in defaults.items()}
+    name = raw.get("name", scenario)
+    if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", name) \
+            or name in (".", ".."):
+        raise ThermoseedError(
+            f"{where}: name = {name!r} must be a plain folder name (letters, digits, '-', '_', "
+            "'.'; no path separators)")
+    seed = raw.get("seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise ThermoseedError(f"{where}: seed = {seed!r} must be a non-negative integer")
+    check = _Checker(where)
+    data = sections["data"]
+    n = check.integer("data", "qubits", data["qubits"], 2, MAX_QUBITS)
+    comp = sections["compile"]
+    depth = n if comp["depth"] is None else check.integer("compile", "depth", comp["depth"], 1,
+                                                          MAX_DEPTH)
+    recipe = Recipe(
+        name=name, title=str(raw.get("title", scenario)), scenario=scenario, seed=seed,
+        data=DataSettings(**data),
+        model=_model_settings(sections["model"], check),
+        compile=CompileSettings(
+            template=check.choice("compile", "template", comp["template"], TEMPLATE_NAMES),
+            depth=depth,
+            restarts=check.integer("compile", "restarts", comp["restarts"], 1, 100),
+            max_iter=check.integer("compile", "max_iter", comp["max_iter"], 1, MAX_ITER)),
+    )
+    if scenario == "neighbour-xxz":
+        for key in ("source_delta", "target_delta"):
+            check.number("data", key, data[key])
+        check.number("data", "beta", data["beta"], low=0.0)
+        solver = sections["eigensolver"]
+        return dataclasses.replace(recipe, eigensolver=EigensolverSettings(
+            strategies=check.strategies("eigensolver", solver["strategies"]),
+            seeds=check.integer("eigensolver", "seeds", solver["seeds"], 1, MAX_SEEDS),
+            steps=check.integer("eigensolver", "steps", solver["steps"], 1, MAX_STEPS),
+            learning_rate=check.number("eigensolver", "learning_rate", solver["learning_rate"],
+                                       low=0.0, open_low=True),
+            tolerance=check.number("eigensolver", "tolerance", solver["tolerance"], low=0.0)))
+    check.integer("data", "samples", data["samples"], 4, MAX_SAMPLES)
+    check.number("data", "test_fraction", data["test_fraction"], low=0.0, high=1.0,
+                 open_low=True, open_high=True)
+    train, plateau = sections["train"], sections["plateau"]
+    sizes = plateau["sizes"]
+    if not isinstance(sizes, list) or len(sizes) < 2 or len(set(sizes)) != len(sizes):
+        raise ThermoseedError(f"{where}: [plateau] sizes = {sizes!r} needs >= 2 distinct "
+                              f"integers in 2..{MAX_PLATEAU_QUBITS}")
+    return dataclasses.replace(
+        recipe,
+        train=TrainSettings(
+            strategies=check.strategies("train", train["strategies"]),
+            seeds=check.integer("train", "seeds", train["seeds"], 1, MAX_SEEDS),
+            steps=check.integer("train", "steps", train["steps"], 1, MAX_STEPS),
+            learning_rate=check.number("train", "learning_rate", train["learning_rate"],
+                                       low=0.0, open_low=True),
+            target_accuracy=check.number("train", "target_accuracy", train["target_accuracy"],
+                                         low=0.0, high=1.0, open_low=True)),
+        plateau=PlateauSettings(
+            sizes=tuple(sorted(check.integer("plateau", "sizes", s, 2, MAX_PLATEAU_QUBITS)
+                               for s in sizes)),
+            strategies=check.strategies("plateau", plateau["strategies"]),
+            seeds=check.integer("plateau", "seeds", plateau["seeds"], 2, MAX_SEEDS),
+            costs=tuple(check.choice("plateau", "costs", c, COST_NAMES)
+                        for c in check.nonempty("plateau", "costs", plateau["costs"]))),
+    )
+
+
+def _merge(given, values: dict, section: str, where: str) -> dict:
+    """Defaults of ``section`` updated by the file's table; unknown keys and kinds refused."""
+    if not isinstance(given, dict):
+        raise ThermoseedError(f"{where}: [{section}] must be a table")
+    bad = set(given) - set(values)
+    if bad:
+        raise ThermoseedError(
+            f"{where}: unknown keys {sorted(bad)} in [{section}]; allowed: {sorted(values)}")
+    merged = copy.deepcopy(values)
+    for key, value in given.items():
+        default = values[key]
+        if default is not None and not _same_kind(value, default):
             raise ThermoseedError(
-                f"{where}: unknown keys {sorted(bad)} in [{section}]; allowed: {sorted(values)}"
-            )
-        merged = copy.deepcopy(values)
-        for key, value in given.items():
-            default = values[key]
-            if default is not None and not _same_kind(value, default):
-                raise ThermoseedError(
-                    f"{where}: [{section}] {key} = {value!r} should be a "
-                    f"{type(default).__name__} like {default!r}"
-                )
-            merged[key] = value
-        recipe[section] = merged
-    _check_values(recipe, where)
-    return recipe
+                f"{where}: [{section}] {key} = {value!r} should be a "
+                f"{type(default).__name__} like {default!r}")
+        merged[key] = value
+    return merged
 
 
 def _same_kind(value, default) -> bool:
@@ -143,30 +305,64 @@ def _same_kind(value, default) -> bool:
         isinstance(value, bool) and not isinstance(default, bool))
 
 
-def _check_values(recipe: dict, where: str) -> None:
-    data = recipe["data"]
-    if not isinstance(data["qubits"], int) or not 2 <= data["qubits"] <= 10:
-        raise ThermoseedError(f"{where}: [data] qubits must be an integer in 2..10")
-    depth = recipe["compile"]["depth"]
-    if depth is not None and (not isinstance(depth, int) or depth < 1):
-        raise ThermoseedError(f"{where}: [compile] depth must be a positive integer")
-    for section in ("train", "eigensolver", "plateau"):
-        if section in recipe:
-            for name in recipe[section]["strategies"]:
-                if name not in _STRATEGIES + ["pretrained_perturbed"]:
-                    raise ThermoseedError(
-                        f"{where}: [{section}] unknown strategy {name!r}; choose from "
-                        f"{_STRATEGIES + ['pretrained_perturbed']}"
-                    )
-            if recipe[section]["seeds"] < 1:
-                raise ThermoseedError(f"{where}: [{section}] seeds must be >= 1")
-    if "plateau" in recipe:
-        sizes = recipe["plateau"]["sizes"]
-        if len(sizes) < 2 or any(not isinstance(s, int) or not 2 <= s <= 12 for s in sizes):
-            raise ThermoseedError(f"{where}: [plateau] sizes needs >= 2 integers in 2..12")
+def _model_settings(model: dict, check: _Checker) -> ModelSettings:
+    fields = model["fields"]
+    if not isinstance(fields, str) or set(fields) - set("XYZ"):
+        raise ThermoseedError(f"{check.where}: [model] fields = {fields!r} must be letters "
+                              "from X, Y, Z (e.g. \"XZ\"), or \"\" for none")
+    couplings = tuple(model["couplings"])
+    for pair in couplings:
+        if not isinstance(pair, str) or len(pair) != 2 or set(pair) - set("XYZ"):
+            raise ThermoseedError(f"{check.where}: [model] couplings entry {pair!r} must be "
+                                  "two letters from X, Y, Z (e.g. \"ZZ\")")
+    return ModelSettings(graph=check.choice("model", "graph", model["graph"], GRAPH_NAMES),
+                         fields=fields, couplings=couplings,
+                         l2=check.number("model", "l2", model["l2"], low=0.0))
 
 
-def fingerprint(recipe: dict) -> str:
-    """Short hash of a validated recipe (identifies a run folder's settings)."""
-    text = json.dumps(recipe, sort_keys=True)
-    return hashlib.sha256(text.encode()).hexdigest()[:16]
+class _Checker:
+    """Range checks with one message style: ``<file>: [section] key = value ...``."""
+
+    def __init__(self, where: str):
+        self.where = where
+
+    def integer(self, section: str, key: str, value, low: int, high: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
+            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} must be an "
+                                  f"integer in {low}..{high}")
+        return value
+
+    def number(self, section: str, key: str, value, *, low: float | None = None,
+               high: float | None = None, open_low: bool = False,
+               open_high: bool = False) -> float:
+        ok = isinstance(value, (int, float)) and not isinstance(value, bool) and \
+            math.isfinite(value)
+        if ok and low is not None:
+            ok = value > low if open_low else value >= low
+        if ok and high is not None:
+            ok = value < high if open_high else value <= high
+        if not ok:
+            lo = "" if low is None else f"{'>' if open_low else '>='} {low:g}"
+            hi = "" if high is None else f"{'<' if open_high else '<='} {high:g}"
+            bounds = " and ".join(b for b in (lo, hi) if b) or "finite"
+            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} must be a "
+                                  f"finite number {bounds}")
+        return float(value)
+
+    def choice(self, section: str, key: str, value, allowed) -> str:
+        if value not in allowed:
+            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} is not one of "
+                                  f"{', '.join(allowed)}")
+        return value
+
+    def nonempty(self, section: str, key: str, values) -> list:
+        if not isinstance(values, list) or not values:
+            raise ThermoseedError(f"{self.where}: [{section}] {key} must be a non-empty list")
+        return values
+
+    def strategies(self, section: str, values) -> tuple[str, ...]:
+        names = [self.choice(section, "strategies", v, STRATEGY_NAMES)
+                 for v in self.nonempty(section, "strategies", values)]
+        if len(set(names)) != len(names):
+            raise ThermoseedError(f"{self.where}: [{section}] strategies lists a name twice")
+        return tuple(names)

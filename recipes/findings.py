@@ -13,6 +13,7 @@ from thermoseed.bridge.plateau.report import LIMITS, _save, _style
 from thermoseed.bridge.plateau.stats import decay_rates, summarize_curves
 from thermoseed.bridge.plateau.sweep import probe_results, train_curves
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.config import Recipe
 
 
 def _fmt_reach(value, target: float) -> str:
@@ -39,11 +40,11 @@ def _chain_lines(run: dict) -> list[str]:
     ]
 
 
-def classification_findings(recipe: dict, run: dict, records: list) -> str:
+def classification_findings(recipe: Recipe, run: dict, records: list) -> str:
     """Markdown 'Findings' section for a classification recipe."""
-    n = recipe["data"]["qubits"]
-    target = recipe["train"]["target_accuracy"]
-    lines = [f"# {recipe['title']}", "", LIMITS, "", "## In plain words", ""]
+    n = recipe.data.qubits
+    target = recipe.train.target_accuracy
+    lines = [f"# {recipe.title}", "", LIMITS, "", "## In plain words", ""]
     groups = defaultdict(list)
     for curve in train_curves(records):
         groups[curve.strategy].append(curve)
@@ -72,7 +73,7 @@ def classification_findings(recipe: dict, run: dict, records: list) -> str:
     if probes:
         lines += ["", "Gradient variance decay (slope of log2 mean variance per added qubit, "
                   "95% bootstrap interval):", ""]
-        fits = decay_rates(probes, statistic="mean_var", seed=recipe["seed"])
+        fits = decay_rates(probes, statistic="mean_var", seed=recipe.seed)
         for key, fit in sorted(fits.items()):
             trend = "decays" if fit.high < 0 else "grows" if fit.low > 0 else "shows no clear trend"
             lines.append(f"- {_style(key.strategy)[0]}, {key.cost} cost: slope {fit.slope:+.2f} "
@@ -82,17 +83,17 @@ def classification_findings(recipe: dict, run: dict, records: list) -> str:
     return "\n".join(lines + _chain_lines(run))
 
 
-def eigensolver_findings(recipe: dict, run: dict, runs: list, e0: float, target: float) -> str:
+def eigensolver_findings(recipe: Recipe, run: dict, runs: list, e0: float, target: float) -> str:
     """Markdown report for the neighbour-warm-start recipe."""
-    d = recipe["data"]
+    d = recipe.data
     by = defaultdict(list)
     for r in runs:
         by[r["strategy"]].append(r)
     lines = [
-        f"# {recipe['title']}", "", LIMITS, "", "## In plain words", "",
-        f"A Gibbs model fitted to the thermal state of the {d['qubits']}-qubit XXZ chain at "
-        f"anisotropy {d['source_delta']} (beta = {d['beta']}) was compiled into a circuit; that "
-        f"circuit seeded a variational eigensolver for anisotropy {d['target_delta']}. Exact "
+        f"# {recipe.title}", "", LIMITS, "", "## In plain words", "",
+        f"A Gibbs model fitted to the thermal state of the {d.qubits}-qubit XXZ chain at "
+        f"anisotropy {d.source_delta} (beta = {d.beta}) was compiled into a circuit; that "
+        f"circuit seeded a variational eigensolver for anisotropy {d.target_delta}. Exact "
         f"ground energy {e0:.6f}; target energy {target:.6f}.", "",
         "| start | seeds | initial energy (median) | final energy (median) | "
         "steps to target (median) | seeds reaching target |",

@@ -34,7 +34,7 @@ from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_s
 from thermoseed.pretrain.data import stratified_split
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
-from thermoseed.recipes.config import fingerprint
+from thermoseed.recipes.config import Recipe
 
 RUN_FILE = "run.json"
 
@@ -53,11 +53,11 @@ def _write_json(path: Path, payload: dict) -> None:
     atomic_write_bytes(path, json.dumps(payload, indent=2, sort_keys=True, default=str).encode())
 
 
-def _claim_folder(out: Path, recipe: dict) -> dict:
+def _claim_folder(out: Path, recipe: Recipe) -> dict:
     """Create or reopen a run folder; refuse one that holds a different recipe's run."""
     out.mkdir(parents=True, exist_ok=True)
     run_path = out / RUN_FILE
-    fp = fingerprint(recipe)
+    fp = recipe.fingerprint()
     if run_path.exists():
         try:
             previous = json.loads(run_path.read_text())
@@ -69,8 +69,8 @@ def _claim_folder(out: Path, recipe: dict) -> dict:
                 f"run folder {str(out)!r} holds a run of different settings; pass another "
                 "--out or delete the folder"
             )
-    run = {"fingerprint": fp, "recipe": recipe, "versions": _versions(), "status": "running",
-           "seeds": {"recipe": recipe["seed"]}, "timings": {}, "files": {}}
+    run = {"fingerprint": fp, "recipe": recipe.as_dict(), "versions": _versions(),
+           "status": "running", "seeds": {"recipe": recipe.seed}, "timings": {}, "files": {}}
     _write_json(run_path, run)
     return run
 
@@ -120,19 +120,18 @@ def _training_data(data: LabelledData):
 # ------------------------------------------------------------------------------ stages
 
 
-def _pretrain_chain(recipe: dict, out: Path, run: dict, terms, td, progress: bool):
+def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: bool):
     """Fit, compile and warm start at the recipe's size; writes the three files."""
     n = terms.n_qubits
-    model_cfg, comp = recipe["model"], recipe["compile"]
+    comp = recipe.compile
     with _Stage(run, out, "fit"):
-        model = VisibleGibbsModel(terms, l2=model_cfg["l2"], seed=recipe["seed"],
+        model = VisibleGibbsModel(terms, l2=recipe.model.l2, seed=recipe.seed,
                                   progress=progress).fit(td)
         model.save(out / "model.npz")
-    unit = make_ansatz(comp["template"], n, comp["depth"])
+    unit = make_ansatz(comp.template, n, comp.depth)
     with _Stage(run, out, "compile"):
-        result = compile_latent(model, unit, restarts=comp["restarts"],
-                                max_iter=comp["max_iter"], seed=recipe["seed"], data=td.rho,
-                                progress=progress)
+        result = compile_latent(model, unit, restarts=comp.restarts, max_iter=comp.max_iter,
+                                seed=recipe.seed, data=td.rho, progress=progress)
         save_compile(result, out / "compile.npz")
     params = np.asarray(warm_start(result, head=unit), dtype=float)
     atomic_save_npz(out / "warm_start.npz", {"params": params,
@@ -146,34 +145,33 @@ def _pretrain_chain(recipe: dict, out: Path, run: dict, terms, td, progress: boo
     return model, result
 
 
-def run_classification(recipe: dict, out: Path, run: dict, progress: bool,
+def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
                        workers: int | None):
-    data_cfg, model_cfg, comp = recipe["data"], recipe["model"], recipe["compile"]
-    n, seed = data_cfg["qubits"], recipe["seed"]
-    plateau, train = recipe["plateau"], recipe["train"]
-    sizes = sorted(set(plateau["sizes"]) | {n})
+    data_cfg, model_cfg, comp = recipe.data, recipe.model, recipe.compile
+    n, seed = data_cfg.qubits, recipe.seed
+    plateau, train = recipe.plateau, recipe.train
+    sizes = sorted(set(plateau.sizes) | {n})
     with _Stage(run, out, "data"):
-        data = {m: classification_data(recipe["scenario"], m, data_cfg["samples"],
-                                       data_cfg["test_fraction"], seed + m) for m in sizes}
+        data = {m: classification_data(recipe.scenario, m, data_cfg.samples,
+                                       data_cfg.test_fraction, seed + m) for m in sizes}
         main = data[n]
         key = "states" if np.ndim(main.train_states) == 2 else "density"
         atomic_save_npz(out / "data.npz", {key: main.train_states, "labels": main.train_labels,
                                            f"test_{key}": main.test_states,
                                            "test_labels": main.test_labels})
     run["files"]["data"] = "data.npz"
-    terms = graph_terms(n, model_cfg["graph"], fields=model_cfg["fields"],
-                        couplings=tuple(model_cfg["couplings"]))
+    terms = graph_terms(n, model_cfg.graph, fields=model_cfg.fields,
+                        couplings=model_cfg.couplings)
     _pretrain_chain(recipe, out, run, terms, _training_data(main), progress)
-    settings = PretrainSettings(model_cfg["graph"], model_cfg["fields"],
-                                tuple(model_cfg["couplings"]), model_cfg["l2"],
-                                comp["restarts"], comp["max_iter"])
-    seeds = range(seed, seed + train["seeds"])
-    jobs = make_grid([n], train["strategies"], seeds, task="training",
-                     depths=[comp["depth"]], template=comp["template"], steps=train["steps"],
-                     learning_rate=train["learning_rate"], settings=settings)
-    jobs += make_grid(plateau["sizes"], plateau["strategies"],
-                      range(seed, seed + plateau["seeds"]), costs=plateau["costs"],
-                      template=comp["template"], settings=settings)
+    settings = PretrainSettings(model_cfg.graph, model_cfg.fields, model_cfg.couplings,
+                                model_cfg.l2, comp.restarts, comp.max_iter)
+    seeds = range(seed, seed + train.seeds)
+    jobs = make_grid([n], train.strategies, seeds, task="training",
+                     depths=[comp.depth], template=comp.template, steps=train.steps,
+                     learning_rate=train.learning_rate, settings=settings)
+    jobs += make_grid(plateau.sizes, plateau.strategies,
+                      range(seed, seed + plateau.seeds), costs=plateau.costs,
+                      template=comp.template, settings=settings)
     with _Stage(run, out, "sweep"):
         result = run_sweep(jobs, out / "results.jsonl", data=data,
                            workers=workers, progress=progress)
@@ -183,12 +181,12 @@ def run_classification(recipe: dict, out: Path, run: dict, progress: bool,
         from thermoseed.recipes.findings import classification_findings
 
         write_report(result.records, out, title="Plateau comparison in detail",
-                     target=train["target_accuracy"], seed=seed,
+                     target=train.target_accuracy, seed=seed,
                      preamble=classification_findings(recipe, run, result.records))
     run["files"]["report"] = "report.md"
 
 
-def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
+def run_eigensolver_recipe(recipe: Recipe, out: Path, run: dict, progress: bool):
     from thermoseed.recipes.findings import eigensolver_findings, plot_energy_runs
     from thermoseed.recipes.neighbour import energy_runs
     from thermoseed.recipes.scenarios.neighbour_xxz import (
@@ -198,21 +196,21 @@ def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
         xxz_terms,
     )
 
-    data_cfg, solver = recipe["data"], recipe["eigensolver"]
-    n = data_cfg["qubits"]
+    data_cfg, solver = recipe.data, recipe.eigensolver
+    n = data_cfg.qubits
     with _Stage(run, out, "data"):
-        rho = thermal_state(n, data_cfg["source_delta"], data_cfg["beta"])
+        rho = thermal_state(n, data_cfg.source_delta, data_cfg.beta)
         atomic_save_npz(out / "data.npz", {"density": rho})
     run["files"]["data"] = "data.npz"
     td = from_density_matrices(rho)
     _, result = _pretrain_chain(recipe, out, run, xxz_terms(n), td, progress)
-    target_h = xxz_hamiltonian(n, data_cfg["target_delta"])
-    e0 = ground_energy(n, data_cfg["target_delta"])
-    target = e0 + solver["tolerance"] * abs(e0)
+    target_h = xxz_hamiltonian(n, data_cfg.target_delta)
+    e0 = ground_energy(n, data_cfg.target_delta)
+    target = e0 + solver.tolerance * abs(e0)
     with _Stage(run, out, "eigensolver"):
-        runs = energy_runs(result, target_h, target, solver["strategies"],
-                           range(recipe["seed"], recipe["seed"] + solver["seeds"]),
-                           steps=solver["steps"], learning_rate=solver["learning_rate"],
+        runs = energy_runs(result, target_h, target, solver.strategies,
+                           range(recipe.seed, recipe.seed + solver.seeds),
+                           steps=solver.steps, learning_rate=solver.learning_rate,
                            progress=progress)
         _write_json(out / "energies.json", {"ground_energy": e0, "target": target,
                                             "runs": runs})
@@ -224,13 +222,13 @@ def run_eigensolver_recipe(recipe: dict, out: Path, run: dict, progress: bool):
                          "report": "report.md"})
 
 
-def run_recipe(recipe: dict, out, *, progress: bool = True,
+def run_recipe(recipe: Recipe, out, *, progress: bool = True,
                workers: int | None = None) -> dict[str, Any]:
     """Run a validated recipe (``load_recipe``) into folder ``out``; returns run.json's data."""
     out = Path(out)
     run = _claim_folder(out, recipe)
     start = time.perf_counter()
-    if recipe["scenario"] == "neighbour-xxz":
+    if recipe.scenario == "neighbour-xxz":
         run_eigensolver_recipe(recipe, out, run, progress)
     else:
         run_classification(recipe, out, run, progress, workers)

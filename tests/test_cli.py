@@ -214,7 +214,7 @@ def test_recipe_type_errors_name_the_key():
 def test_builtin_recipes_load():
     for name in ("magnet-phase", "probe-drift", "neighbour-xxz"):
         recipe = load_recipe(name, quick=True)
-        assert recipe["scenario"] == name and recipe["compile"]["depth"] >= 1
+        assert recipe.scenario == name and recipe.compile.depth >= 1
 
 
 def test_help_mentions_an_example_for_every_command(capsys):
@@ -256,13 +256,13 @@ def test_readme_quickstart_main_job_runs(tmp_path):
 def test_qubit_override_goes_through_the_file_rules(tmp_path):
     """--qubits is validated like the same value in a TOML file, and keeps an explicit depth."""
     for bad in (11, 1):
-        with pytest.raises(ThermoseedError, match="qubits must be an integer in 2..10"):
+        with pytest.raises(ThermoseedError, match=r"qubits = \d+ must be an integer in 2..10"):
             load_recipe("magnet-phase", qubits=bad)
-    assert load_recipe("magnet-phase", qubits=6)["compile"]["depth"] == 6  # default follows n
+    assert load_recipe("magnet-phase", qubits=6).compile.depth == 6  # default follows n
     path = tmp_path / "mine.toml"
     path.write_text('scenario = "magnet-phase"\n[compile]\ndepth = 2\n')
-    assert load_recipe(path, qubits=6)["compile"]["depth"] == 2
-    with pytest.raises(ThermoseedError, match="seed must be a non-negative integer"):
+    assert load_recipe(path, qubits=6).compile.depth == 2
+    with pytest.raises(ThermoseedError, match="seed = -1 must be a non-negative integer"):
         load_recipe(path, seed=-1)
 
 
@@ -270,3 +270,42 @@ def test_version_flag(capsys):
     with pytest.raises(SystemExit) as stop:
         main(["--version"])
     assert stop.value.code == 0 and capsys.readouterr().out.startswith("thermoseed ")
+
+
+@pytest.mark.parametrize("section, key, value, message", [
+    ("data", "test_fraction", 1.5, "test_fraction = 1.5 must be a finite number > 0 and < 1"),
+    ("data", "test_fraction", float("nan"), "test_fraction = nan"),
+    ("data", "samples", 10**9, "samples = 1000000000 must be an integer in 4..4096"),
+    ("compile", "max_iter", -10, "max_iter = -10 must be an integer in 1..100000"),
+    ("compile", "max_iter", 0, "max_iter = 0"),
+    ("compile", "template", "wavy", "template = 'wavy' is not one of"),
+    ("compile", "depth", 100000, "depth = 100000 must be an integer in 1..64"),
+    ("model", "l2", -1.0, "l2 = -1.0 must be a finite number >= 0"),
+    ("model", "graph", "torus", "graph = 'torus' is not one of"),
+    ("model", "fields", "XQ", "fields = 'XQ'"),
+    ("model", "couplings", ["ZZZ"], "couplings entry 'ZZZ'"),
+    ("train", "learning_rate", 0.0, "learning_rate = 0.0 must be a finite number > 0"),
+    ("train", "strategies", [], "strategies must be a non-empty list"),
+    ("train", "seeds", 100000000, "seeds = 100000000 must be an integer in 1..1000"),
+    ("plateau", "costs", ["loud"], "costs = 'loud' is not one of"),
+    ("plateau", "sizes", [4], "sizes = [4] needs >= 2 distinct integers"),
+])
+def test_every_recipe_value_is_checked_before_any_work(section, key, value, message):
+    raw = {"scenario": "magnet-phase", section: {key: value}}
+    with pytest.raises(ThermoseedError, match=re.escape(message)):
+        validate_recipe(raw)
+
+
+@pytest.mark.parametrize("name", ["../../x", "/tmp/abs", "a/b", "..", ""])
+def test_recipe_names_are_plain_folder_names(name):
+    with pytest.raises(ThermoseedError, match="must be a plain folder name"):
+        validate_recipe({"scenario": "magnet-phase", "name": name})
+
+
+def test_recipe_is_frozen_and_typed():
+    recipe = load_recipe("magnet-phase")
+    with pytest.raises(AttributeError):
+        recipe.seed = 3
+    assert isinstance(recipe.model.couplings, tuple) and recipe.data.qubits == 4
+    assert recipe.fingerprint() == load_recipe("magnet-phase").fingerprint()
+    assert recipe.fingerprint() != load_recipe("magnet-phase", seed=1).fingerprint()
