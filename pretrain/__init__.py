@@ -3,10 +3,19 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    errors -> _base -> files -> linalg -> paulis -> data -> engines -> optim -> models ->
-    diagnostics
+    errors -> checks -> _base -> files -> linalg -> paulis -> data -> engines -> optim -> models ->
+    classifier -> term_growth -> diagnostics
 """
 
+from .classifier import (
+    GibbsClassifier,
+    helstrom_measurement,
+    helstrom_success,
+    load_classifier,
+    pretty_good_measurement,
+    save_classifier,
+    success_probability,
+)
 from .data import (
     TrainingData,
     as_training_data,
@@ -35,6 +44,7 @@ from .paulis import (
     sparse_hamiltonian,
     to_pennylane,
 )
+from .term_growth import TermGrowth, candidate_terms, grow_terms
 
 __version__ = "0.1.0"
 
@@ -47,4 +57,7 @@ __all__ = [
     "make_engine", "minimize", "moment_residuals", "pauli_traces", "read_record",
     "relative_entropy", "save_model", "sparse_hamiltonian", "to_pennylane", "trace_distance",
     "von_neumann_entropy", "write_record",
+    "GibbsClassifier", "TermGrowth", "candidate_terms", "grow_terms", "helstrom_measurement",
+    "helstrom_success", "load_classifier", "pretty_good_measurement", "save_classifier",
+    "success_probability",
 ]

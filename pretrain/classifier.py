@@ -1,0 +1,429 @@
+"""Label-aware Gibbs classifier: one Gibbs model per class on a shared Pauli term set.
+
+Fitting: the training states of class c are mixed, ``rho_c = (1/B_c) sum_{i: y_i = c} rho_i``,
+and a ``VisibleGibbsModel`` ``sigma_c = exp(-H_c)/Z_c``, ``H_c = sum_j theta_cj P_j``, is
+fitted to ``rho_c`` by relative entropy, every class on the same terms ``P_j``.
+
+``rule="many-copy"`` (nearest model in relative entropy; quantum Stein lemma:
+Hiai & Petz, "The proper formula for relative entropy and its asymptotics in quantum
+probability", 1991): a test accepting N copies of rho with fixed probability accepts N
+copies of sigma_c with probability ~ ``exp(-N S(rho||sigma_c))``. The nearest model is the
+likeliest source, and the score of class c is
+``s_c(rho) = -[Tr(rho H_c) + log Z_c] + log p_c = -S(rho||sigma_c) - S(rho) + log p_c``,
+with ``Tr(rho H_c) = sum_j theta_cj Tr(rho P_j)`` from O(d) Pauli traces. ``predict_proba``
+is ``softmax_c s_c``: for commuting models and a basis state ``|x><x|`` it is the Bayes
+posterior ``p_c sigma_c(x) / sum_k p_k sigma_k(x)``. For two classes
+``s_1 - s_0 = -Tr(rho D)`` with the observable
+``D = (H_1 + log Z_1 I) - (H_0 + log Z_0 I) - log(p_1/p_0) I`` (``decision_observable``).
+
+``rule="single-shot"`` (one copy, one measurement). Two classes: the Helstrom measurement
+(Helstrom, "Quantum Detection and Estimation Theory", 1976): ``M_1`` projects onto the
+positive eigenspace of ``Gamma = p_1 sigma_1 - p_0 sigma_0`` (half of its null space is
+added, so ``Gamma = 0`` gives 1/2 each), ``M_0 = I - M_1``; success ``P* = (1 + ||Gamma||_1)/2``.
+More classes: the pretty-good measurement (Hausladen & Wootters, "A 'pretty good' measurement
+for distinguishing quantum states", 1994) ``M_c = R p_c sigma_c R``, ``R = rho_bar^{-1/2}``
+on the support of ``rho_bar = sum_c p_c sigma_c``; the complement ``Pi_0`` of that support
+is spread evenly, ``M_c += Pi_0 / C``, so ``sum_c M_c = I``. Its success is at least the
+square of the optimum (Barnum & Knill, "Reversing quantum dynamics with near-optimal quantum
+and classical fidelity", 2002). ``predict_proba(rho)_c = Tr(M_c rho)``.
+
+Bounds: ``data_success_`` is the optimal (two classes) or pretty-good single-shot success
+between the class mixtures ``rho_c``; one copy of a random class-c training state is the
+state rho_c, so with two classes no single-shot classifier beats it on average over the
+training states at those priors. ``model_success_`` is the same between the fitted models:
+what the model class believes is achievable. The two need not be ordered (the models are
+other states than the data).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import NamedTuple
+
+import numpy as np
+
+from ._base import ParamsMixin, check_is_fitted
+from .checks import real_number
+from .data import (
+    TrainingData,
+    check_density_matrix,
+    check_qubits,
+    from_density_matrices,
+    from_states,
+    square_array_kind,
+)
+from .errors import ThermoseedError
+from .files import json_scalar, read_record, write_record
+from .linalg import eigh, log_sum_exp_neg
+from .models import VisibleGibbsModel
+from .paulis import PauliExpansion, TermSet, expectations
+
+RULES = ("many-copy", "single-shot")
+PRIOR_NAMES = ("balanced", "empirical")
+#: Eigenvalues of rho_bar below SUPPORT_RTOL times the largest lie outside its support.
+SUPPORT_RTOL = 1e-10
+#: Eigenvalues of Gamma with |lambda| <= ZERO_RTOL * max|lambda| count as zero.
+ZERO_RTOL = 1e-12
+#: Largest |sum(priors) - 1| accepted for explicit priors.
+PRIOR_ATOL = 1e-8
+CLASSIFIER_KIND = "gibbs-classifier"
+
+
+# ---------------------------------------------------------------- inputs
+
+
+class StateBatch(NamedTuple):
+    """Validated states: ``kind`` "states" ((B, d) unit vectors) or "density" ((B, d, d))."""
+
+    kind: str
+    data: np.ndarray
+    n_qubits: int
+
+    @property
+    def count(self) -> int:
+        return int(self.data.shape[0])
+
+    def subset(self, index) -> StateBatch:
+        return StateBatch(self.kind, self.data[index], self.n_qubits)
+
+
+def as_state_batch(states, *, renormalize: bool = False) -> StateBatch:
+    """Validate (B, 2^n) state vectors or (B, 2^n, 2^n) density matrices (data.py checks)."""
+    arr = np.asarray(states)
+    if arr.ndim in (2, 3) and arr.shape[0] == 0:
+        raise ThermoseedError("the state batch is empty; pass at least one state")
+    if arr.ndim in (1, 2):
+        try:
+            td = from_states(arr, renormalize=renormalize)
+        except ThermoseedError as err:
+            if square_array_kind(arr) == "density":  # a lone density matrix, read as vectors
+                raise ThermoseedError(f"{err}; a (d, d) array is read as d state vectors: pass "
+                                      "one density matrix as rho[None]") from err
+            raise
+        return StateBatch("states", td.states, td.n_qubits)
+    if arr.ndim == 3:
+        checked = np.stack([check_density_matrix(m, renormalize=renormalize,
+                                                 what=f"density matrix {i}")
+                            for i, m in enumerate(arr)])
+        return StateBatch("density", checked, int(round(np.log2(arr.shape[1]))))
+    raise ThermoseedError(f"states must be (B, 2^n) state vectors or (B, 2^n, 2^n) density "
+                          f"matrices, got shape {arr.shape}")
+
+
+def batch_moments(batch: StateBatch, terms: TermSet) -> np.ndarray:
+    """(B, K) moments ``m_ij = Tr(rho_i P_j)`` (``<psi_i|P_j|psi_i>`` for vectors)."""
+    check_qubits(batch.n_qubits, terms)
+    if batch.kind == "states":
+        return np.array([expectations(np.outer(v, v.conj()), terms) for v in batch.data])
+    return np.array([expectations(r, terms) for r in batch.data])
+
+
+def batch_mixture(batch: StateBatch) -> TrainingData:
+    """The equal-weight mixture ``(1/B) sum_i rho_i`` of a batch."""
+    build = from_states if batch.kind == "states" else from_density_matrices
+    return build(batch.data)
+
+
+def check_labels(labels, count: int, *, every_class: bool = True) -> tuple[np.ndarray, int]:
+    """Integer labels ``0..C-1``, one per state; ``every_class``: all C >= 2 classes present."""
+    lab = np.asarray(labels)
+    if lab.ndim != 1 or lab.shape[0] != count:
+        raise ThermoseedError(f"got {count} states but labels of shape {lab.shape}; pass one "
+                              "integer label per state")
+    if lab.dtype == bool or not np.issubdtype(lab.dtype, np.integer):
+        raise ThermoseedError(f"labels must be integers 0..C-1, got dtype {lab.dtype}; convert "
+                              "them, e.g. np.unique(labels, return_inverse=True)[1]")
+    if lab.min() < 0:
+        raise ThermoseedError(f"label {int(lab.min())} is negative; number the classes 0..C-1")
+    n_classes = int(lab.max()) + 1
+    if every_class:
+        missing = sorted(set(range(n_classes)) - set(lab.tolist()))
+        if missing:
+            raise ThermoseedError(f"labels run 0..{n_classes - 1} but classes {missing[:5]} have "
+                                  "no states; renumber the classes 0..C-1 with each present")
+        if n_classes < 2:
+            raise ThermoseedError("every label is 0 (one class only); a classifier needs "
+                                  "states of at least two classes")
+    return lab.astype(np.int64), n_classes
+
+
+def prior_vector(priors, n_classes: int) -> np.ndarray:
+    """Explicit class priors: ``n_classes`` positive finite numbers summing to 1."""
+    p = np.asarray(priors, dtype=float)
+    if p.shape != (n_classes,) or not np.all(np.isfinite(p)) or np.any(p <= 0):
+        raise ThermoseedError(f"priors {np.asarray(priors).tolist()} must be {n_classes} "
+                              "positive numbers (one per class)")
+    if abs(p.sum() - 1.0) > PRIOR_ATOL:
+        raise ThermoseedError(f"priors sum to {p.sum():.12g}, not 1; divide them by their sum")
+    return p / p.sum()
+
+
+def resolve_priors(spec, counts: np.ndarray) -> np.ndarray:
+    """``"balanced"`` -> 1/C, ``"empirical"`` -> class frequencies, else explicit values."""
+    if isinstance(spec, str):
+        if spec == "balanced":
+            return np.full(len(counts), 1.0 / len(counts))
+        if spec == "empirical":
+            return counts / counts.sum()
+        raise ThermoseedError(f"unknown priors {spec!r}; use one of {PRIOR_NAMES} or C numbers")
+    return prior_vector(spec, len(counts))
+
+
+# ---------------------------------------------------------------- single-shot measurements
+
+
+def _state_stack(states, what: str) -> np.ndarray:
+    try:
+        arr = np.asarray(states)
+    except ValueError as err:  # ragged: matrices of different sizes
+        raise ThermoseedError(f"the {what}s have different shapes; give every one as d x d") \
+            from err
+    if arr.ndim != 3 or arr.shape[0] < 2:
+        raise ThermoseedError(f"{what}s must be a (C, d, d) stack of C >= 2 density matrices, "
+                              f"got shape {arr.shape}")
+    try:
+        return np.stack([check_density_matrix(m, what=f"{what} {c}") for c, m in enumerate(arr)])
+    except ThermoseedError as err:  # no renormalize option here: name the fix directly
+        raise ThermoseedError(str(err).replace("pass renormalize=True to divide by the trace",
+                                               "divide it by its trace first")) from err
+
+
+def _check_p0(p0: float) -> float:
+    value = real_number(p0, "p0")
+    if not 0.0 <= value <= 1.0:
+        raise ThermoseedError(f"p0 = {p0!r} must be a probability in [0, 1]")
+    return value
+
+
+def helstrom_measurement(sigma_0, sigma_1, p0: float = 0.5) -> np.ndarray:
+    """(2, d, d) POVM: ``M_1 = Pi_+(Gamma) + Pi_0(Gamma)/2``, ``M_0 = I - M_1``,
+    ``Gamma = (1 - p0) sigma_1 - p0 sigma_0``."""
+    s = _state_stack([sigma_0, sigma_1], "state")
+    p0 = _check_p0(p0)
+    vals, vecs = eigh((1.0 - p0) * s[1] - p0 * s[0])
+    zero = np.abs(vals) <= ZERO_RTOL * max(np.abs(vals).max(), np.finfo(float).tiny)
+    weight = np.where(zero, 0.5, (vals > 0).astype(float))
+    m1 = (vecs * weight) @ vecs.conj().T
+    return np.stack([np.eye(len(vals)) - m1, m1])
+
+
+def helstrom_success(sigma_0, sigma_1, p0: float = 0.5) -> float:
+    """Optimal one-copy success ``(1 + ||(1 - p0) sigma_1 - p0 sigma_0||_1) / 2``."""
+    s = _state_stack([sigma_0, sigma_1], "state")
+    p0 = _check_p0(p0)
+    gamma = (1.0 - p0) * s[1] - p0 * s[0]
+    return float(0.5 * (1.0 + np.abs(np.linalg.eigvalsh(gamma)).sum()))
+
+
+def pretty_good_measurement(states, priors=None) -> np.ndarray:
+    """(C, d, d) POVM ``M_c = rho_bar^{-1/2} p_c sigma_c rho_bar^{-1/2} + Pi_0 / C`` (module
+    docstring); ``priors`` default 1/C."""
+    s = _state_stack(states, "state")
+    p = np.full(len(s), 1.0 / len(s)) if priors is None else prior_vector(priors, len(s))
+    weighted = p[:, None, None] * s
+    vals, vecs = eigh(weighted.sum(axis=0))
+    keep = vals > SUPPORT_RTOL * vals.max()
+    root = vecs[:, keep] / np.sqrt(vals[keep])  # columns V_k / sqrt(lambda_k)
+    inner = np.einsum("ai,cab,bj->cij", root.conj(), weighted, root)
+    povm = np.einsum("ai,cij,bj->cab", vecs[:, keep], inner, vecs[:, keep].conj())
+    null = vecs[:, ~keep]
+    povm += (null @ null.conj().T)[None] / len(s)
+    return 0.5 * (povm + povm.conj().transpose(0, 2, 1))
+
+
+def success_probability(povm, states, priors=None) -> float:
+    """``P = sum_c p_c Tr(M_c sigma_c)`` for a POVM and states (priors default 1/C)."""
+    s = _state_stack(states, "state")
+    m = np.asarray(povm)
+    if m.shape != s.shape:
+        raise ThermoseedError(f"POVM has shape {m.shape} but the states {s.shape}")
+    p = np.full(len(s), 1.0 / len(s)) if priors is None else prior_vector(priors, len(s))
+    return float(p @ np.einsum("cab,cba->c", m, s).real)
+
+
+def single_shot(states, priors) -> tuple[np.ndarray, float]:
+    """(POVM, success): Helstrom for two states, the pretty-good measurement for more."""
+    if len(states) == 2:
+        return (helstrom_measurement(states[0], states[1], priors[0]),
+                helstrom_success(states[0], states[1], priors[0]))
+    povm = pretty_good_measurement(states, priors)
+    return povm, success_probability(povm, states, priors)
+
+
+# ---------------------------------------------------------------- the classifier
+
+
+class GibbsClassifier(ParamsMixin):
+    """One Gibbs model per class on a shared term set; many-copy or single-shot decisions.
+
+    Parameters:
+        terms: the shared ``TermSet`` (or list of labels).
+        rule: ``"many-copy"`` (nearest model in relative entropy) or ``"single-shot"``
+            (Helstrom / pretty-good measurement between the models); module docstring.
+        priors: ``"balanced"`` (1/C; empirical priors tilt the measurement towards the
+            majority class), ``"empirical"`` (class frequencies) or C explicit values.
+        l2, tol, max_iter, solver, engine, progress: passed to every ``VisibleGibbsModel``.
+        renormalize: divide unnormalised states by their norm (trace) instead of failing.
+
+    Attributes:
+        terms_, classes_, class_counts_, priors_: the term set, ``0..C-1``, counts, priors.
+        models_: fitted ``VisibleGibbsModel`` per class. coef_: (C, K) coefficients.
+        log_partition_: (C,) ``log Z_c``. loss_: (C,) ``S(rho_c||sigma_c)``. converged_: (C,).
+        povm_: (C, d, d) single-shot measurement between the models (``measurement()``).
+        model_success_, data_success_: single-shot success on the models / class mixtures.
+    """
+
+    def __init__(self, terms, *, rule: str = "many-copy", priors="balanced", l2: float = 1e-3,
+                 tol: float = 1e-6, max_iter: int = 500, solver: str = "lbfgs",
+                 engine: str = "dense", renormalize: bool = False, progress: bool = False):
+        self.terms = terms
+        self.rule = rule
+        self.priors = priors
+        self.l2 = l2
+        self.tol = tol
+        self.max_iter = max_iter
+        self.solver = solver
+        self.engine = engine
+        self.renormalize = renormalize
+        self.progress = progress
+
+    def _model_params(self) -> dict:
+        return {"l2": self.l2, "tol": self.tol, "max_iter": self.max_iter,
+                "solver": self.solver, "engine": self.engine, "progress": self.progress}
+
+    def fit(self, states, labels) -> GibbsClassifier:
+        """Fit one model per class on that class's mixture and return self."""
+        if self.rule not in RULES:
+            raise ThermoseedError(f"unknown rule {self.rule!r}; choose one of {RULES}")
+        terms = self.terms if isinstance(self.terms, TermSet) else TermSet(self.terms)
+        batch = as_state_batch(states, renormalize=self.renormalize)
+        check_qubits(batch.n_qubits, terms)
+        y, n_classes = check_labels(labels, batch.count)
+        counts = np.bincount(y, minlength=n_classes)
+        priors = resolve_priors(self.priors, counts)
+        mixtures = [batch_mixture(batch.subset(y == c)) for c in range(n_classes)]
+        models = [VisibleGibbsModel(terms, **self._model_params()).fit(td) for td in mixtures]
+        self._set_models(terms, models, priors)
+        self.class_counts_ = counts
+        self.loss_ = np.array([m.loss_ for m in models])
+        self.converged_ = np.array([m.converged_ for m in models])
+        self.data_success_ = single_shot(np.stack([td.rho for td in mixtures]), priors)[1]
+        return self
+
+    def _set_models(self, terms: TermSet, models: list, priors: np.ndarray) -> None:
+        self.terms_ = terms
+        self.models_ = models
+        self.classes_ = np.arange(len(models))
+        self.priors_ = priors
+        self.coef_ = np.stack([m.coef_ for m in models])
+        self.log_partition_ = np.array([m.log_partition() for m in models])
+        self.povm_, self.model_success_ = single_shot(np.stack([m.state() for m in models]),
+                                                      priors)
+
+    # ------------------------------------------------------------------ decisions
+    def _batch(self, states) -> StateBatch:
+        check_is_fitted(self, "coef_")
+        batch = as_state_batch(states, renormalize=self.renormalize)
+        check_qubits(batch.n_qubits, self.terms_)
+        return batch
+
+    def relative_entropy_scores(self, states) -> np.ndarray:
+        """(B, C) scores ``s_c = -[Tr(rho H_c) + log Z_c] + log p_c`` (either rule)."""
+        moments = batch_moments(self._batch(states), self.terms_)
+        return -(moments @ self.coef_.T) - self.log_partition_ + np.log(self.priors_)
+
+    def predict_proba(self, states) -> np.ndarray:
+        """(B, C): ``softmax_c s_c`` (many-copy) or ``Tr(M_c rho)`` (single-shot)."""
+        if self.rule not in RULES:
+            raise ThermoseedError(f"unknown rule {self.rule!r}; choose one of {RULES}")
+        if self.rule == "many-copy":
+            scores = self.relative_entropy_scores(states)
+            return np.array([log_sum_exp_neg(-row)[1] for row in scores])
+        batch = self._batch(states)
+        if batch.kind == "states":
+            probs = np.einsum("ba,cax,bx->bc", batch.data.conj(), self.povm_, batch.data).real
+        else:
+            probs = np.einsum("cab,kba->kc", self.povm_, batch.data).real
+        probs = np.clip(probs, 0.0, None)
+        return probs / probs.sum(axis=1, keepdims=True)
+
+    def predict(self, states) -> np.ndarray:
+        """The most probable class per state (``argmax predict_proba``)."""
+        probs = self.predict_proba(states)
+        return self.classes_[np.argmax(probs, axis=1)]
+
+    def score(self, states, labels) -> float:
+        """Accuracy: the fraction of states whose predicted class equals the label."""
+        predicted = self.predict(states)
+        y, _ = check_labels(labels, len(predicted), every_class=False)
+        return float(np.mean(predicted == y))
+
+    def measurement(self) -> np.ndarray:
+        """(C, d, d) single-shot POVM between the fitted models (Helstrom / pretty-good)."""
+        check_is_fitted(self, "coef_")
+        return self.povm_.copy()
+
+    def decision_observable(self, *, with_priors: bool = True) -> PauliExpansion:
+        """Two classes: ``D = sum_j (theta_1j - theta_0j) P_j + offset I``, offset
+        ``log Z_1 - log Z_0 - log(p_1/p_0)`` (without the prior term if not ``with_priors``).
+        Class 1 iff ``Tr(rho D) < 0``; many-copy ``P(1|rho) = 1 / (1 + exp(Tr(rho D)))``."""
+        check_is_fitted(self, "coef_")
+        if len(self.classes_) != 2:
+            raise ThermoseedError(f"decision_observable needs two classes, this classifier has "
+                                  f"{len(self.classes_)}; use relative_entropy_scores")
+        offset = float(self.log_partition_[1] - self.log_partition_[0])
+        if with_priors:
+            offset -= float(np.log(self.priors_[1] / self.priors_[0]))
+        return PauliExpansion(self.coef_[1] - self.coef_[0], self.terms_, offset)
+
+    def save(self, path) -> Path:
+        """Write one versioned ``gibbs-classifier`` record (``save_classifier``)."""
+        return save_classifier(self, path)
+
+
+_METRICS = (("model_success", "model_success_"), ("data_success", "data_success_"))
+
+
+def save_classifier(clf: GibbsClassifier, path) -> Path:
+    """Save term labels, coefficients and log Z per class, priors, rule, settings, metrics."""
+    check_is_fitted(clf, "coef_")
+    params = {k: json_scalar(v) for k, v in clf.get_params().items() if k != "terms"}
+    if not isinstance(params["priors"], str):
+        params["priors"] = np.asarray(params["priors"], float).tolist()
+    metrics = {name: json_scalar(getattr(clf, attr)) for name, attr in _METRICS
+               if hasattr(clf, attr)}
+    arrays = {"coef": clf.coef_, "log_partition": clf.log_partition_, "priors": clf.priors_}
+    for name in ("loss", "converged", "class_counts"):
+        if hasattr(clf, name + "_"):
+            arrays[name] = np.asarray(getattr(clf, name + "_"))
+    header = {"model": type(clf).__name__, "n_qubits": clf.terms_.n_qubits,
+              "terms": clf.terms_.labels, "params": params, "metrics": metrics}
+    return write_record(path, CLASSIFIER_KIND, header, arrays)
+
+
+def load_classifier(path) -> GibbsClassifier:
+    """Load a ``save_classifier`` record; predictions equal those of the saved classifier."""
+    header, arrays = read_record(path, CLASSIFIER_KIND)
+    try:
+        clf = GibbsClassifier(header["terms"], **header["params"])
+        terms = TermSet(header["terms"])
+        coef, log_z, priors = arrays["coef"], arrays["log_partition"], arrays["priors"]
+        metrics = header["metrics"]
+    except (KeyError, TypeError) as err:
+        raise ThermoseedError(f"classifier file {str(path)!r} is incomplete: missing {err}") \
+            from err
+    if coef.ndim != 2 or coef.shape[1] != len(terms) or log_z.shape != priors.shape or \
+            priors.shape != (coef.shape[0],):
+        raise ThermoseedError(f"classifier file {str(path)!r} is inconsistent: coef "
+                              f"{coef.shape}, log_partition {log_z.shape}, priors {priors.shape}")
+    models = [VisibleGibbsModel.from_coefficients(terms, row, **clf._model_params())
+              for row in coef]
+    clf._set_models(terms, models, priors)
+    clf.log_partition_ = log_z
+    for name, attr in _METRICS:
+        if name in metrics:
+            setattr(clf, attr, metrics[name])
+    for name in ("loss", "converged", "class_counts"):
+        if name in arrays:
+            setattr(clf, name + "_", arrays[name])
+    return clf
