@@ -196,10 +196,44 @@ def latent_order(k: int, n_qubits: int) -> np.ndarray:
     return out
 
 
+def labelled_order(classes: np.ndarray, n_qubits: int, readout: int = 0) -> np.ndarray:
+    """Basis states for latent slots whose readout bit carries the slot's class.
+
+    Slot i (the i-th most probable eigenvector) has class ``classes[i]`` in {0, 1}; it goes to
+    the next unused basis state, in ``latent_order`` (wire 0 fastest), whose bit on wire
+    ``readout`` equals that class. A downstream circuit that starts at this compile then
+    reads, on the readout wire, the class each eigenvector holds more weight of.
+    """
+    pool = latent_order(2**n_qubits, n_qubits)
+    bit = (pool >> (n_qubits - 1 - readout)) & 1
+    queues = [list(pool[bit == 0]), list(pool[bit == 1])]
+    out = []
+    for c in np.asarray(classes, dtype=int):
+        side = c if queues[c] else 1 - c  # a full half: the other half takes the slot
+        out.append(queues[side].pop(0))
+    return np.asarray(out, dtype=np.int64)
+
+
+def eigenvector_classes(vectors: np.ndarray, states, labels) -> np.ndarray:
+    """For each eigenvector v (columns), the class c whose training states hold more weight
+    on it, by the mean class overlap ``(1/B_c) sum_{b in c} <v|rho_b|v>`` (balanced)."""
+    states = np.asarray(states)
+    labels = np.asarray(labels)
+    if states.ndim == 2:
+        overlaps = np.abs(states.conj() @ vectors) ** 2  # (B, k)
+    else:
+        overlaps = np.real(np.einsum("ia,bij,ja->ba", vectors.conj(), states, vectors))
+    means = np.stack([overlaps[labels == c].mean(axis=0) for c in (0, 1)])
+    return np.argmax(means, axis=0)
+
+
 def spectrum_latent(model_energies: np.ndarray, *, k: int | None = None,
-                    weight: float = 0.999) -> Latent:
+                    weight: float = 0.999, classes: np.ndarray | None = None,
+                    readout: int = 0) -> Latent:
     """Top-k eigenvalues of sigma (k given, or the fewest reaching cumulative ``weight``),
-    renormalised and placed on the basis states ``latent_order(k, n)``."""
+    renormalised and placed on the basis states ``latent_order(k, n)``, or, given the
+    class of each of the top eigenvectors (``classes``, most probable first), on
+    ``labelled_order`` so the ``readout`` bit of each slot is its class."""
     _, probs = log_sum_exp_neg(model_energies)
     order = np.sort(probs)[::-1]
     if k is None:
@@ -209,7 +243,9 @@ def spectrum_latent(model_energies: np.ndarray, *, k: int | None = None,
     k = int(min(max(k, 1), len(order)))
     top = order[:k]
     n_qubits = int(round(np.log2(len(order))))
-    return Latent("spectrum", latent_order(k, n_qubits), top / top.sum(), float(top.sum()))
+    basis = latent_order(k, n_qubits) if classes is None else \
+        labelled_order(np.asarray(classes)[:k], n_qubits, readout)
+    return Latent("spectrum", basis, top / top.sum(), float(top.sum()))
 
 
 def _check_model(model, ansatz: Ansatz, n_wires: int):
@@ -270,10 +306,15 @@ def compile_latent(
     model, ansatz: Ansatz, *, latent: str = "spectrum", k: int | None = None,
     weight: float = 0.999, restarts: int = 3, seed: int = 0, max_iter: int = 300,
     tol: float = 1e-6, init_scale: float = 2 * np.pi, data=None, progress: bool = False,
+    class_data=None, readout: int = 0,
 ) -> CompileResult:
     """Latent-form compile of a fitted model into ``ansatz`` (see module docstring).
 
     ``data``: optional training density matrix (or ``TrainingData``) for the report.
+    ``class_data``: optional ``(states, labels)`` with two classes 0/1; each latent
+    eigenvector is then placed on a basis state whose ``readout`` bit is the class that holds
+    more (class-balanced) weight on it, so a classifier reading that wire starts on the
+    labels' side instead of an arbitrary one (``labelled_order``).
     Restarts start from uniform parameters on ``[0, init_scale)``; the best is kept.
     """
     if latent not in LATENT_KINDS:
@@ -285,8 +326,21 @@ def compile_latent(
     energies, log_z = np.asarray(gibbs.energies), gibbs.log_z
 
     npar = ansatz.n_params
+    classes = None
+    if class_data is not None:
+        if latent != "spectrum":
+            raise ThermoseedError("class_data places the spectrum latent; use latent='spectrum'")
+        states, labels = class_data
+        labels = np.asarray(labels)
+        if set(np.unique(labels).tolist()) != {0, 1}:
+            raise ThermoseedError(
+                f"class_data needs labels 0 and 1 (two classes), got {sorted(set(labels))}")
+        if not 0 <= int(readout) < n:
+            raise ThermoseedError(f"readout wire {readout} is not in 0..{n - 1}")
+        classes = eigenvector_classes(gibbs.vectors, states, labels)
     if latent == "spectrum":
-        lat = spectrum_latent(energies, k=k, weight=weight)
+        lat = spectrum_latent(energies, k=k, weight=weight, classes=classes,
+                              readout=int(readout))
         q = lat.probs
         neg_entropy = -entropy_of_spectrum(q)
 

@@ -19,12 +19,15 @@ class GibbsEvaluation(NamedTuple):
         moments: ``<P_j>_sigma`` for every term.
         energies: eigenvalues of H (ascending), or None when the engine does not compute them.
         state: the density matrix sigma, or None when not requested.
+        vectors: eigenvectors of H as columns (order of ``energies``) when the state was
+            requested and the engine computes them, else None.
     """
 
     log_z: float
     moments: np.ndarray
     energies: np.ndarray | None
     state: np.ndarray | None
+    vectors: np.ndarray | None = None
 
 
 class GibbsEngine(ABC):

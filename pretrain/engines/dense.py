@@ -37,4 +37,6 @@ class DenseEngine(GibbsEngine):
         factor = vectors[:, keep] * np.sqrt(probs[keep])
         sigma = factor @ factor.conj().T
         moments = expectations(sigma, self.terms)
-        return GibbsEvaluation(log_z, moments, energies, sigma if want_state else None)
+        if not want_state:
+            return GibbsEvaluation(log_z, moments, energies, None)
+        return GibbsEvaluation(log_z, moments, energies, sigma, vectors)
