@@ -1,6 +1,6 @@
 """Warm start: parameters for the downstream circuit from a compiled Gibbs model.
 
-Downstream layout (DESIGN.md section 6): data state -> encoder ``U(phi)^dag`` -> head -> readout.
+Downstream layout: data state -> encoder ``U(phi)^dag`` -> head -> readout.
 The warm start puts the compiled ``phi`` in the encoder and the head at exactly the identity,
 so at step 0 the circuit maps the data into the latent basis where the model's probability
 concentrates. With no head, the parameters are the compiled ``phi`` in the ansatz's own shape.

@@ -80,7 +80,7 @@ def test_single_qubit_closed_form(a):
     a = np.array(a)
     model = _model(["X", "Y", "Z"], a)
     r = np.linalg.norm(a)
-    # Source: REFERENCES.md, textbook two-level system: Z = 2 cosh|a|,
+    # Source: textbook two-level system: Z = 2 cosh|a|,
     # sigma = (I - tanh|a| (a/|a|).sigma)/2, <sigma_k> = -tanh|a| a_k/|a|.
     assert model.log_partition() == pytest.approx(np.log(2 * np.cosh(r)), rel=1e-13)
     paulis = [np.array([[0, 1], [1, 0]]), np.array([[0, -1j], [1j, 0]]), np.diag([1, -1])]
@@ -96,7 +96,7 @@ def test_classical_ising_ring_zero_field(n):
     # E = -J sum s_i s_{i+1}; Z_i has eigenvalue s = +1 on |0>, so theta_ZZ = -J.
     terms = graph_terms(n, "ring", fields="", couplings=("ZZ",))
     model = _model(terms, np.full(len(terms), -j))
-    # Source: REFERENCES.md, transfer-matrix solution of the 1-D Ising model (Baxter 1982):
+    # Source: transfer-matrix solution of the 1-D Ising model (Baxter 1982):
     # Z = (2 cosh J)^N + (2 sinh J)^N.
     want = np.log((2 * np.cosh(j)) ** n + (2 * np.sinh(j)) ** n)
     assert model.log_partition() == pytest.approx(want, rel=1e-12)
@@ -107,7 +107,7 @@ def test_classical_ising_ring_with_field(n, j, h):
     terms = graph_terms(n, "ring", fields="Z", couplings=("ZZ",))
     theta = np.concatenate([np.full(n, -h), np.full(n, -j)])
     model = _model(terms, theta)
-    # Source: REFERENCES.md, transfer-matrix solution of the 1-D Ising model (Baxter 1982):
+    # Source: transfer-matrix solution of the 1-D Ising model (Baxter 1982):
     # Z = l+^N + l-^N, l+- = e^J cosh h +- sqrt(e^{2J} sinh^2 h + e^{-2J}).
     root = np.sqrt(np.exp(2 * j) * np.sinh(h) ** 2 + np.exp(-2 * j))
     lp, lm = np.exp(j) * np.cosh(h) + root, np.exp(j) * np.cosh(h) - root
@@ -115,7 +115,7 @@ def test_classical_ising_ring_with_field(n, j, h):
 
 
 def _tfim_free_fermion_log_z(n, j, g, beta):
-    """REFERENCES.md free-fermion log Z of H = -J sum Z_i Z_{i+1} - g sum X_i, open ends."""
+    """Free-fermion log Z of H = -J sum Z_i Z_{i+1} - g sum X_i, open ends."""
     a = np.diag(np.full(n, 2.0 * g)) - j * (np.eye(n, k=1) + np.eye(n, k=-1))
     b = -j * np.eye(n, k=1) + j * np.eye(n, k=-1)
     lam = np.sqrt(np.clip(np.linalg.eigvals((a - b) @ (a + b)).real, 0.0, None))
@@ -129,7 +129,7 @@ def test_transverse_field_ising_open_chain_free_fermions(n, beta):
     terms = graph_terms(n, "line", fields="X", couplings=("ZZ",))
     theta = beta * np.concatenate([np.full(n, -g), np.full(n - 1, -j)])
     model = _model(terms, theta)
-    # Source: REFERENCES.md, free-fermion solution (Lieb, Schultz & Mattis 1961; Pfeuty 1970):
+    # Source: free-fermion solution (Lieb, Schultz & Mattis 1961; Pfeuty 1970):
     # log Z(beta) = sum_k log(2 cosh(beta L_k / 2)), L_k = sqrt(eig((A-B)(A+B))).
     want, lam = _tfim_free_fermion_log_z(n, j, g, beta)
     assert model.log_partition() == pytest.approx(want, rel=1e-11)
@@ -199,7 +199,7 @@ def test_klein_inequality_random_pairs(helpers):
         d = 2 ** int(rng.integers(1, 4))
         rho = helpers.random_density(d, rng, rank=int(rng.integers(1, d + 1)))
         sigma = helpers.random_density(d, rng)
-        # Source: REFERENCES.md, Klein's inequality S(rho||sigma) >= 0, equality iff equal.
+        # Source: Klein's inequality (Klein 1931) S(rho||sigma) >= 0, equality iff equal.
         assert relative_entropy(rho, sigma) >= -1e-12
         assert relative_entropy(sigma, sigma) == pytest.approx(0.0, abs=1e-10)
         assert relative_entropy(rho, sigma) > 1e-6  # distinct random states differ

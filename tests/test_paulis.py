@@ -164,7 +164,8 @@ def test_pauli_traces_match_pennylane(n, helpers):
 
 
 def test_design_trace_formula_sign_for_odd_y():
-    """DESIGN.md's ``sum_b A[b^x, b] ...`` is (-1)^{n_y} Tr(A P); the code's A[b, b^x] is right."""
+    """The transposed gather ``sum_b A[b^x, b] ...`` is (-1)^{n_y} Tr(A P); the code's
+    A[b, b^x] is right."""
     rng = np.random.default_rng(7)
     n = 2
     a = rng.standard_normal((4, 4)) + 1j * rng.standard_normal((4, 4))

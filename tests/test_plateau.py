@@ -72,7 +72,7 @@ def test_haar_variance_of_local_expectation(n):
     """Var over seeds of <Z_0> after a deep uniform circuit -> 1/(2^n + 1).
 
     Source: second moment of the Haar measure, E[|psi><psi|^{x2}] = P_sym / binom(d+1, 2)
-    (Mele, arXiv:2307.08956; REFERENCES.md "Random states and plateaus"): Var<P> = 1/(d+1)
+    (Mele, arXiv:2307.08956, second moment of the Haar measure): Var<P> = 1/(d+1)
     for a non-identity Pauli P, d = 2^n, and E<P> = 0.
     Tolerance (derived here): the fourth moment from P_sym^(4) / binom(d+3, 4) is
     E<P>^4 = Tr(P^{x4} P_sym^(4)) / binom(d+3, 4) = [d(d+2)/8] / binom(d+3, 4)
@@ -105,7 +105,7 @@ def test_uniform_gradients_decay_exponentially(cost, small_sweep):
 
     Source: McClean et al., "Barren plateaus in quantum neural network training
     landscapes", Nat. Commun. 9, 4812 (2018); global costs: Cerezo et al., Nat. Commun. 12,
-    1791 (2021) (REFERENCES.md). Default suite n = 2..6; n = 2..8 in the slow test.
+    1791 (2021). Default suite n = 2..6; n = 2..8 in the slow test.
     """
     for statistic in ("mean_var", "max_var"):
         fit = fit_decay(small_sweep("uniform", cost), statistic=statistic, seed=7)

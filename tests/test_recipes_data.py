@@ -39,7 +39,8 @@ def xxz_reference(n: int, delta: float, j: float = 1.0) -> np.ndarray:
 
 
 def tfim_free_fermion_levels(n: int, g: float, j: float = 1.0) -> np.ndarray:
-    """Single-particle energies L_k = sqrt(eig((A-B)(A+B))), matrices as in REFERENCES.md."""
+    """Single-particle energies L_k = sqrt(eig((A-B)(A+B))), matrices of the free-fermion
+    solution (Lieb, Schultz & Mattis 1961)."""
     a = np.zeros((n, n))
     b = np.zeros((n, n))
     for i in range(n):
@@ -68,7 +69,7 @@ def assert_balanced(labels: np.ndarray) -> None:
 @pytest.mark.parametrize("n", [4, 5, 6])
 @pytest.mark.parametrize("g", [0.3, 1.0, 1.7])
 def test_tfim_ground_energy_matches_free_fermions(n, g):
-    # Source: REFERENCES.md, transverse-field Ising chain with open ends (Lieb, Schultz &
+    # Source: transverse-field Ising chain with open ends (Lieb, Schultz &
     # Mattis 1961; Pfeuty 1970): E0 = -sum_k L_k / 2.
     e0, psi = magnet_phase.ground_state(n, g, 1.0)
     expected = -tfim_free_fermion_levels(n, g).sum() / 2
@@ -127,7 +128,8 @@ def test_magnet_gibbs_states_match_expm_and_free_fermion_energy():
         h = tfim_reference(n, g)
         ref = scipy.linalg.expm(-beta * h)
         np.testing.assert_allclose(rho, ref / np.trace(ref), atol=1e-12)
-        # Source: REFERENCES.md, open TFIM: U = -sum_k (L_k/2) tanh(beta L_k/2).
+        # Source: free-fermion solution of the open TFIM (Pfeuty 1970):
+        # U = -sum_k (L_k/2) tanh(beta L_k/2).
         levels = tfim_free_fermion_levels(n, g)
         u = -(levels / 2 * np.tanh(beta * levels / 2)).sum()
         assert np.trace(rho @ h).real == pytest.approx(u, abs=1e-10)

@@ -82,7 +82,7 @@ def test_recovers_coefficients_of_exact_gibbs_data(n, helpers):
     assert model.grad_norm_ < 5e-8
     np.testing.assert_allclose(model.coef_, theta, atol=1e-5)
     assert model.loss_ <= 1e-8
-    assert model.loss_ >= -1e-12  # Source: Klein's inequality (REFERENCES.md).
+    assert model.loss_ >= -1e-12  # Source: Klein's inequality, S(rho||sigma) >= 0 (Klein 1931).
 
 
 def test_maximum_entropy_moment_matching(helpers):
@@ -92,7 +92,8 @@ def test_maximum_entropy_moment_matching(helpers):
     rho = helpers.random_density(2**n, rng)  # generic: outside the model class
     model = _quiet_fit(VisibleGibbsModel(terms, tol=1e-8, max_iter=1000), rho)
     sigma = model.state()
-    # Source: REFERENCES.md, maximum entropy (Jaynes 1957): the optimum matches every moment.
+    # Source: maximum entropy (Jaynes, Phys. Rev. 106, 620 (1957)): the optimum matches
+    # every moment.
     assert np.abs(moment_residuals(model)).max() < 1e-6
     assert np.abs(expectations(rho, terms) - expectations(sigma, terms)).max() < 1e-6
     # Same source: sigma has the largest entropy among states with these moments, and
