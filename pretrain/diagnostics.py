@@ -1,12 +1,16 @@
-"""Distances between density matrices and fit diagnostics (natural log throughout)."""
+"""Distances between density matrices and fit diagnostics (natural log throughout).
+
+PennyLane's ``qml.math`` has relative entropy, fidelity and trace distance too; these stay
+here because ``pretrain`` depends on numpy and scipy only, and because ``relative_entropy``
+returns ``inf`` when supp rho is not inside supp sigma instead of a large finite number.
+The tests check all three against ``qml.math`` and QuTiP.
+"""
 
 from __future__ import annotations
 
 import numpy as np
 
 from .linalg import ENTROPY_FLOOR, entropy_of_spectrum
-
-NATS_PER_BIT = np.log(2.0)
 
 
 def relative_entropy(rho: np.ndarray, sigma: np.ndarray) -> float:

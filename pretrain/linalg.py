@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.linalg
+import scipy.special
 
 #: Eigen-weights below this fraction of the largest are dropped when forming a Gibbs state.
 WEIGHT_CUTOFF = 1e-16
@@ -21,19 +22,19 @@ def eigh(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def log_sum_exp_neg(energies: np.ndarray) -> tuple[float, np.ndarray]:
-    """``log sum_k exp(-E_k)`` shifted by ``min E`` and the normalised weights ``p_k``."""
+    """``log Z = log sum_k exp(-E_k)`` (``scipy.special.logsumexp``, which shifts by the
+    largest exponent, i.e. by ``min E``) and the weights ``p_k = exp(-E_k - log Z)``."""
     e = np.asarray(energies, dtype=float)
-    e0 = e.min()
-    w = np.exp(-(e - e0))
-    total = w.sum()
-    return float(-e0 + np.log(total)), w / total
+    log_z = float(scipy.special.logsumexp(-e))
+    return log_z, np.exp(-e - log_z)
 
 
 def entropy_of_spectrum(probs: np.ndarray) -> float:
-    """Shannon/von Neumann entropy ``-sum p log p`` (nats) of a probability vector."""
+    """Shannon/von Neumann entropy ``-sum p log p`` (nats) of a probability vector, by
+    ``scipy.special.entr``; weights at or below ``ENTROPY_FLOOR`` (round-off of an eigensolver,
+    possibly slightly negative, where ``entr`` would give -inf) count as zero."""
     p = np.asarray(probs, dtype=float)
-    p = p[p > ENTROPY_FLOOR]
-    return float(-(p * np.log(p)).sum())
+    return float(scipy.special.entr(p[p > ENTROPY_FLOOR]).sum())
 
 
 def von_neumann_entropy(rho: np.ndarray) -> float:

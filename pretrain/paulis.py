@@ -281,7 +281,11 @@ def apply_hamiltonian(coeffs, terms: TermSet, vectors: np.ndarray) -> np.ndarray
 def graph_edges(
     kind: str, n_qubits: int, *, shape: tuple[int, int] | None = None, edges=None
 ) -> list[tuple[int, int]]:
-    """Edges of a line, ring, 2-D grid (``shape=(rows, cols)``), complete graph or edge list."""
+    """Edges of a line, ring, 2-D grid (``shape=(rows, cols)``), complete graph or edge list.
+
+    ``qml.spin`` builds lattices as well; these few edge lists are written here because
+    ``pretrain`` depends on numpy and scipy only (PennyLane enters at ``bridge``).
+    """
     if kind not in GRAPH_KINDS:
         raise ThermoseedError(f"unknown graph {kind!r}; choose one of {GRAPH_KINDS}")
     n = int(n_qubits)

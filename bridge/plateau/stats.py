@@ -8,7 +8,10 @@ seeds r = 1..R and active parameters k = 1..K:
 
 Decay rate: least-squares slope ``b`` of ``log2 S(n) = a + b n`` for a statistic S; ``b`` is in
 log2 units per qubit (``b = -1`` halves S per added qubit). Interval: seeded percentile
-bootstrap, resampling the seeds with replacement independently at every n.
+bootstrap, resampling the seeds with replacement independently at every n. Written here
+rather than with ``scipy.stats.bootstrap`` because a resample that repeats one seed has zero
+variance (log2 = -inf); such resamples are dropped and counted, where scipy would carry the
+non-finite slopes into the percentiles.
 """
 
 from __future__ import annotations
