@@ -3,8 +3,8 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    errors -> checks -> _base -> files -> linalg -> paulis -> data -> engines -> optim -> models ->
-    classifier -> term_growth -> diagnostics
+    errors -> checks -> _base -> files -> linalg -> paulis -> data -> labelled -> engines ->
+    optim -> models -> classifier -> term_growth -> diagnostics
 """
 
 from .classifier import (
@@ -28,6 +28,7 @@ from .diagnostics import fidelity, moment_residuals, relative_entropy, trace_dis
 from .engines import DenseEngine, GibbsEngine, GibbsEvaluation, make_engine
 from .errors import ConvergenceWarning, DivergenceWarning, NotFittedError, ThermoseedError
 from .files import read_record, write_record
+from .labelled import LabelledData, split_labelled, stratified_split
 from .linalg import von_neumann_entropy
 from .models import VisibleGibbsModel, load_model, save_model
 from .optim import FitResult, adam, minimize
@@ -50,7 +51,7 @@ __version__ = "0.1.0"
 
 __all__ = [
     "ConvergenceWarning", "DenseEngine", "DivergenceWarning", "FitResult", "GibbsEngine",
-    "GibbsEvaluation", "NotFittedError", "PauliExpansion", "PauliString", "TermSet",
+    "GibbsEvaluation", "LabelledData", "split_labelled", "stratified_split", "NotFittedError", "PauliExpansion", "PauliString", "TermSet",
     "ThermoseedError", "TrainingData", "VisibleGibbsModel", "adam", "as_training_data",
     "dense_hamiltonian", "expectations", "fidelity", "from_density_matrices", "from_pennylane",
     "from_qfunc", "from_states", "graph_edges", "graph_terms", "load_model", "load_training_data",

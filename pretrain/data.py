@@ -16,7 +16,6 @@ from pathlib import Path
 
 import numpy as np
 
-from .checks import real_number, seed_value
 from .errors import ThermoseedError
 from .files import CORRUPT_FILE_ERRORS
 from .linalg import von_neumann_entropy
@@ -60,34 +59,6 @@ class TrainingData:
     def entropy(self) -> float:
         """Data entropy ``S(rho)`` in nats."""
         return von_neumann_entropy(self.rho)
-
-
-def stratified_split(labels, test_fraction: float = 0.25,
-                     seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
-    """Seeded, label-stratified ``(train, test)`` index split (the one split in thermoseed).
-
-    One permutation of the samples from ``np.random.default_rng(seed)``; from each label class
-    the first ``max(1, round(test_fraction * count))`` permuted members go to the test set
-    (at least one stays for training), the rest to the training set, both in permuted order.
-    """
-    lab = np.asarray(labels)
-    if lab.ndim != 1 or not np.issubdtype(lab.dtype, np.integer):
-        raise ThermoseedError(f"labels must be a 1-D integer array, got shape {lab.shape} "
-                              f"dtype {lab.dtype}")
-    fraction = real_number(test_fraction, "test_fraction")
-    if not 0 < fraction < 1:
-        raise ThermoseedError(f"test_fraction = {test_fraction!r} must lie strictly in (0, 1)")
-    order = np.random.default_rng(seed_value(seed)).permutation(len(lab))
-    test_mask = np.zeros(len(lab), dtype=bool)
-    for label in np.unique(lab):
-        members = order[lab[order] == label]
-        if len(members) < 2:
-            raise ThermoseedError(
-                f"class {int(label)} has {len(members)} sample; a held-out split needs at "
-                "least two per class (add samples of that class)")
-        k = min(max(1, int(round(fraction * len(members)))), len(members) - 1)
-        test_mask[members[:k]] = True
-    return order[~test_mask[order]], order[test_mask[order]]
 
 
 def check_qubits(n_qubits: int, terms: TermSet) -> None:

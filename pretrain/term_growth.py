@@ -16,9 +16,9 @@ variance.
 
 Growth: candidates are added in descending score (ties keep candidate order). After each
 addition a ``GibbsClassifier`` on the current prefix is fitted on the training split and
-scored on the held-out split (``data.stratified_split``, seeded). Growth stops after ``patience``
-consecutive additions without an accuracy gain above ``min_gain`` (or at ``max_terms``); the
-shortest prefix reaching the best held-out accuracy is returned.
+scored on the held-out split (``labelled.stratified_split``, seeded). Growth stops after
+``patience`` consecutive additions without an accuracy gain above ``min_gain`` (or at
+``max_terms``); the shortest prefix reaching the best held-out accuracy is returned.
 """
 
 from __future__ import annotations
@@ -31,8 +31,9 @@ import numpy as np
 
 from .checks import integer_in, real_number
 from .classifier import GibbsClassifier, as_state_batch, batch_moments, check_labels
-from .data import check_qubits, stratified_split
+from .data import check_qubits
 from .errors import ThermoseedError
+from .labelled import stratified_split
 from .paulis import TermSet, graph_edges
 
 #: Default cap on the number of candidate strings.

@@ -183,8 +183,8 @@ def _load_labelled(path):
     counterparts) as classifier data."""
     import numpy as np
 
-    from thermoseed.bridge.plateau.probes import LabelledData
     from thermoseed.pretrain.files import load_npz
+    from thermoseed.pretrain.labelled import LabelledData
 
     arrays = load_npz(path, what="data file")
     key = "states" if "states" in arrays else "density"

@@ -26,14 +26,14 @@ import numpy as np
 from thermoseed.bridge.ansatz import make_ansatz
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.compile_record import save_compile
-from thermoseed.bridge.plateau.probes import LabelledData, PretrainSettings
+from thermoseed.bridge.plateau.probes import PretrainSettings
 from thermoseed.bridge.plateau.report import write_report
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.bridge.warm_start import warm_start
 from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
-from thermoseed.pretrain.data import stratified_split
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
+from thermoseed.pretrain.labelled import LabelledData, split_labelled
 from thermoseed.recipes.config import Recipe
 
 RUN_FILE = "run.json"
@@ -107,9 +107,7 @@ def classification_data(scenario: str, n: int, samples: int, test_fraction: floa
 
         batch = probe_drift_data(n, samples, seed=seed)
         states = batch.density
-    labels = np.asarray(batch.labels)
-    train, test = stratified_split(labels, test_fraction, seed)
-    return LabelledData(states[train], labels[train], states[test], labels[test])
+    return split_labelled(states, batch.labels, test_fraction=test_fraction, seed=seed)
 
 
 def _training_data(data: LabelledData):

@@ -14,7 +14,6 @@ import pytest
 from thermoseed.bridge.ansatz import make_ansatz, unitary
 from thermoseed.bridge.plateau.gradients import CircuitGradient
 from thermoseed.bridge.plateau.probes import (
-    LabelledData,
     PretrainSettings,
     identity_blocks,
     make_strategy,
@@ -33,6 +32,7 @@ from thermoseed.bridge.plateau.stats import (
     summarize_curves,
 )
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import LabelledData
 from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 #: Sigmas allowed between a sample variance and its Haar value (see test_haar_variance).
@@ -298,7 +298,8 @@ def test_fit_decay_recovers_known_slope():
     (lambda: probe("uniform", 1, 1), "n_qubits"),
     (lambda: probe("uniform", 2, 1, seed=-1), "seed"),
     (lambda: small_angle(-0.1), "scale"),
-    (lambda: probe("uniform", 3, 1, "classifier", data=magnet_data(2)), "n = 3"),
+    (lambda: probe("uniform", 3, 1, "classifier", data=magnet_data(2)),
+     "but 3 qubits are expected"),
     (lambda: train_curve("uniform", 2, 1, 0, None), "needs data"),
     (lambda: identity_blocks()((7,), np.random.default_rng(0)), "even length"),
     (lambda: CircuitGradient(make_ansatz("soft", 2, 1), "local", "magic"), "method"),

@@ -8,10 +8,10 @@ from __future__ import annotations
 import matplotlib.image
 import pytest
 
-from thermoseed.bridge.plateau.probes import LabelledData
 from thermoseed.bridge.plateau.report import LIMITS, write_report
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import LabelledData
 from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 

@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 import pytest
 
-from thermoseed.bridge.plateau.probes import LabelledData
 from thermoseed.bridge.plateau.sweep import (
     make_grid,
     probe_results,
@@ -20,6 +20,7 @@ from thermoseed.bridge.plateau.sweep import (
     train_curves,
 )
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import LabelledData
 from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
 
@@ -143,3 +144,15 @@ def test_bad_inputs(tmp_path):
     bad.write_text('{"key": 1, "result": 2}\nnot json\n{"key": 3, "result": 4}\n')
     with pytest.raises(ThermoseedError, match="line 2"):
         read_records(bad)
+
+
+@pytest.mark.parametrize("damage, message", [
+    (lambda s: s.astype(complex) * np.nan, "contains NaN"),
+    (lambda s: 2 * s, "has norm 2"),
+])
+def test_labelled_data_is_checked_like_fit_data(damage, message):
+    """NaN or unnormalised classifier states are refused before any sweep record is written."""
+    data = magnet(2)
+    bad = LabelledData(damage(np.asarray(data.train_states)), *data[1:])
+    with pytest.raises(ThermoseedError, match=message):
+        bad.check(2)

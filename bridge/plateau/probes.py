@@ -25,7 +25,6 @@ gradient; ``ProbeResult.active`` marks the others and the statistics use only th
 
 from __future__ import annotations
 
-import hashlib
 from collections.abc import Callable
 from typing import NamedTuple
 
@@ -42,6 +41,7 @@ from thermoseed.bridge.warm_start import warm_start
 from thermoseed.pretrain import VisibleGibbsModel, as_training_data, graph_terms
 from thermoseed.pretrain.checks import integer_in, seed_value
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import LabelledData
 
 COSTS = ("local", "global", "classifier")
 STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretrained_perturbed")
@@ -92,48 +92,6 @@ def identity_blocks() -> Strategy:
         return np.concatenate([e, e])
 
     return Strategy("identity_blocks", init, {})
-
-
-class LabelledData(NamedTuple):
-    """Classifier data: (B, 2^n) state vectors or (B, 2^n, 2^n) density matrices, labels."""
-
-    train_states: np.ndarray
-    train_labels: np.ndarray
-    test_states: np.ndarray
-    test_labels: np.ndarray
-
-    @property
-    def n_qubits(self) -> int:
-        return int(np.log2(np.shape(self.train_states)[1]))
-
-    def check(self, n_qubits: int) -> LabelledData:
-        """Raise ``ThermoseedError`` unless the arrays fit an n-qubit classifier."""
-        d = 2**n_qubits
-        for part in ("train", "test"):
-            states = np.asarray(getattr(self, f"{part}_states"))
-            labels = np.asarray(getattr(self, f"{part}_labels"))
-            if states.ndim not in (2, 3) or states.shape[1:] not in ((d,), (d, d)) \
-                    or len(states) < 1:
-                raise ThermoseedError(
-                    f"{part}_states must be (B, {d}) state vectors or (B, {d}, {d}) density "
-                    f"matrices for n = {n_qubits}, got shape {states.shape}; pass the data "
-                    "generated for this qubit count"
-                )
-            if labels.shape != (len(states),) or not np.issubdtype(labels.dtype, np.integer):
-                raise ThermoseedError(
-                    f"{part}_labels must be {len(states)} integers (one per state), got "
-                    f"shape {labels.shape} dtype {labels.dtype}"
-                )
-        return self
-
-    def fingerprint(self) -> str:
-        """sha256 of the four arrays (identifies the data in sweep records)."""
-        digest = hashlib.sha256()
-        for arr in self:
-            a = np.ascontiguousarray(arr)
-            digest.update(f"{a.dtype}{a.shape}".encode())
-            digest.update(a.tobytes())
-        return digest.hexdigest()[:16]
 
 
 class PretrainSettings(NamedTuple):

@@ -39,7 +39,6 @@ from tqdm.auto import tqdm
 from thermoseed.bridge.plateau.probes import (
     COSTS,
     STRATEGIES,
-    LabelledData,
     PretrainSettings,
     ProbeResult,
     TrainCurve,
@@ -48,6 +47,7 @@ from thermoseed.bridge.plateau.probes import (
 )
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_write_bytes
+from thermoseed.pretrain.labelled import LabelledData
 
 TASKS = ("gradient", "training")
 #: Seeds batched into one unit of work by default.

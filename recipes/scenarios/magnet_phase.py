@@ -31,9 +31,9 @@ from thermoseed.pretrain.checks import (
     real_number,
     seed_value,
 )
-from thermoseed.pretrain.data import stratified_split
 from thermoseed.pretrain.engines import DenseEngine
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import stratified_split
 from thermoseed.pretrain.linalg import eigh
 from thermoseed.pretrain.paulis import TermSet, dense_hamiltonian, graph_terms
 from thermoseed.recipes.scenarios.record import ScenarioRecord
@@ -201,7 +201,7 @@ def train_test_split(
 ) -> tuple[MagnetPhaseData, MagnetPhaseData]:
     """Seeded, label-stratified split into ``(train, test)``.
 
-    ``thermoseed.pretrain.data.stratified_split`` on the labels.
+    ``thermoseed.pretrain.labelled.stratified_split`` on the labels.
     """
     train_idx, test_idx = stratified_split(data.labels, test_fraction, seed)
     return data.subset(train_idx), data.subset(test_idx)

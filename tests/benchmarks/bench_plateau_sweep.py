@@ -100,7 +100,8 @@ def sweep_cases(args) -> list[dict]:
 
 
 def pretrained_cases(args) -> list[dict]:
-    from thermoseed.bridge.plateau.probes import LabelledData, probe
+    from thermoseed.bridge.plateau.probes import probe
+    from thermoseed.pretrain.labelled import LabelledData
     from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 
     out = []

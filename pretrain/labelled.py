@@ -1,0 +1,131 @@
+"""Labelled classifier data: states with integer labels, split into training and held-out.
+
+``LabelledData`` is the one container for labelled states in thermoseed (sweeps, probes,
+recipes, the command line); ``stratified_split`` the one train / held-out split. The states
+are checked like the fit's data: finite, (B, 2^n) unit vectors or (B, 2^n, 2^n) density
+matrices (Hermitian, PSD, trace one), labels integers 0..C-1.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from typing import NamedTuple
+
+import numpy as np
+
+from .checks import real_number, seed_value
+from .data import check_density_matrix
+from .errors import ThermoseedError
+
+#: Largest deviation of a state vector's norm from one that is accepted as round-off.
+NORM_ATOL = 1e-8
+
+
+def stratified_split(labels, test_fraction: float = 0.25,
+                     seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """Seeded, label-stratified ``(train, test)`` index split (the one split in thermoseed).
+
+    One permutation of the samples from ``np.random.default_rng(seed)``; from each label class
+    the first ``max(1, round(test_fraction * count))`` permuted members go to the test set
+    (at least one stays for training), the rest to the training set, both in permuted order.
+    """
+    lab = np.asarray(labels)
+    if lab.ndim != 1 or not np.issubdtype(lab.dtype, np.integer):
+        raise ThermoseedError(f"labels must be a 1-D integer array, got shape {lab.shape} "
+                              f"dtype {lab.dtype}")
+    fraction = real_number(test_fraction, "test_fraction")
+    if not 0 < fraction < 1:
+        raise ThermoseedError(f"test_fraction = {test_fraction!r} must lie strictly in (0, 1)")
+    order = np.random.default_rng(seed_value(seed)).permutation(len(lab))
+    test_mask = np.zeros(len(lab), dtype=bool)
+    for label in np.unique(lab):
+        members = order[lab[order] == label]
+        if len(members) < 2:
+            raise ThermoseedError(
+                f"class {int(label)} has {len(members)} sample; a held-out split needs at "
+                "least two per class (add samples of that class)")
+        k = min(max(1, int(round(fraction * len(members)))), len(members) - 1)
+        test_mask[members[:k]] = True
+    return order[~test_mask[order]], order[test_mask[order]]
+
+
+def check_state_batch(states, n_qubits: int | None = None, *, what: str = "states"):
+    """(B, 2^n) unit vectors or (B, 2^n, 2^n) density matrices, finite; returns the array.
+
+    ``n_qubits`` (when given) must match; messages name the offending state and the fix.
+    """
+    arr = np.asarray(states)
+    if not np.issubdtype(arr.dtype, np.number):
+        raise ThermoseedError(f"{what} must be numeric arrays, got dtype {arr.dtype}")
+    if arr.ndim not in (2, 3) or len(arr) < 1 or (arr.ndim == 3 and arr.shape[1] != arr.shape[2]):
+        raise ThermoseedError(f"{what} must be (B, 2^n) state vectors or (B, 2^n, 2^n) density "
+                              f"matrices with B >= 1, got shape {arr.shape}")
+    d = arr.shape[1]
+    n = int(round(np.log2(d))) if d > 0 else -1
+    if d < 2 or 2**n != d:
+        raise ThermoseedError(f"{what} have dimension {d}, not a power of two 2^n")
+    if n_qubits is not None and n != n_qubits:
+        raise ThermoseedError(f"{what} are {n}-qubit states but {n_qubits} qubits are "
+                              "expected; pass the data generated for this qubit count")
+    bad = np.flatnonzero(~np.all(np.isfinite(arr.reshape(len(arr), -1)), axis=1))
+    if bad.size:
+        raise ThermoseedError(f"{what} {int(bad[0])} contains NaN or inf ({bad.size} such); "
+                              "remove or repair those states")
+    if arr.ndim == 2:
+        norms = np.linalg.norm(arr, axis=1)
+        off = np.flatnonzero(np.abs(norms - 1.0) > NORM_ATOL)
+        if off.size:
+            raise ThermoseedError(f"{what} {int(off[0])} has norm {norms[off[0]]:.12g}, not 1 "
+                                  f"({off.size} such); normalise each state vector")
+    else:
+        for b, rho in enumerate(arr):
+            check_density_matrix(rho, what=f"{what} {b}")
+    return arr
+
+
+class LabelledData(NamedTuple):
+    """Training and held-out states with integer labels (see the module docstring)."""
+
+    train_states: np.ndarray
+    train_labels: np.ndarray
+    test_states: np.ndarray
+    test_labels: np.ndarray
+
+    @property
+    def n_qubits(self) -> int:
+        return int(np.log2(np.shape(self.train_states)[1]))
+
+    def check(self, n_qubits: int | None = None) -> LabelledData:
+        """Raise ``ThermoseedError`` unless both parts are valid n-qubit labelled states."""
+        n = self.n_qubits if n_qubits is None else n_qubits
+        for part in ("train", "test"):
+            states = check_state_batch(getattr(self, f"{part}_states"), n,
+                                       what=f"{part}_states")
+            labels = np.asarray(getattr(self, f"{part}_labels"))
+            if labels.shape != (len(states),) or not np.issubdtype(labels.dtype, np.integer) \
+                    or labels.min() < 0:
+                raise ThermoseedError(
+                    f"{part}_labels must be {len(states)} integers >= 0 (one per state), got "
+                    f"shape {labels.shape} dtype {labels.dtype}")
+        return self
+
+    def fingerprint(self) -> str:
+        """sha256 of the four arrays (identifies the data in sweep records)."""
+        digest = hashlib.sha256()
+        for arr in self:
+            a = np.ascontiguousarray(arr)
+            digest.update(f"{a.dtype}{a.shape}".encode())
+            digest.update(a.tobytes())
+        return digest.hexdigest()[:16]
+
+
+def split_labelled(states, labels, *, test_fraction: float = 0.25,
+                   seed: int = 0) -> LabelledData:
+    """Checked ``LabelledData`` from one labelled batch by ``stratified_split``."""
+    arr = check_state_batch(states)
+    lab = np.asarray(labels)
+    if lab.shape != (len(arr),):
+        raise ThermoseedError(f"labels must be {len(arr)} integers (one per state), got shape "
+                              f"{lab.shape}")
+    train, test = stratified_split(lab, test_fraction, seed)
+    return LabelledData(arr[train], lab[train], arr[test], lab[test]).check()
