@@ -6,7 +6,7 @@ gradient probes, statistics, sweeps, reports). It imports ``thermoseed.pretrain`
 ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    templates -> ansatz -> circuits -> compile -> compile_record -> warm_start -> classifier ->
-    eigensolver -> plateau.gradients -> plateau.probes -> plateau.stats -> plateau.sweep ->
-    plateau.report
+    templates -> ansatz -> circuits -> compile -> readout_compile -> compile_record ->
+    warm_start -> classifier -> eigensolver -> plateau.gradients -> plateau.probes ->
+    plateau.stats -> plateau.sweep -> plateau.report
 """

@@ -50,15 +50,15 @@ from .term_growth import TermGrowth, candidate_terms, grow_terms
 __version__ = "0.1.0"
 
 __all__ = [
-    "ConvergenceWarning", "DenseEngine", "DivergenceWarning", "FitResult", "GibbsEngine",
-    "GibbsEvaluation", "LabelledData", "split_labelled", "stratified_split", "NotFittedError", "PauliExpansion", "PauliString", "TermSet",
-    "ThermoseedError", "TrainingData", "VisibleGibbsModel", "adam", "as_training_data",
-    "dense_hamiltonian", "expectations", "fidelity", "from_density_matrices", "from_pennylane",
-    "from_qfunc", "from_states", "graph_edges", "graph_terms", "load_model", "load_training_data",
-    "make_engine", "minimize", "moment_residuals", "pauli_traces", "read_record",
-    "relative_entropy", "save_model", "sparse_hamiltonian", "to_pennylane", "trace_distance",
-    "von_neumann_entropy", "write_record",
-    "GibbsClassifier", "TermGrowth", "candidate_terms", "grow_terms", "helstrom_measurement",
-    "helstrom_success", "load_classifier", "pretty_good_measurement", "save_classifier",
-    "success_probability",
+    "adam", "as_training_data", "candidate_terms", "ConvergenceWarning", "dense_hamiltonian",
+    "DenseEngine", "DivergenceWarning", "expectations", "fidelity", "FitResult",
+    "from_density_matrices", "from_pennylane", "from_qfunc", "from_states", "GibbsClassifier",
+    "GibbsEngine", "GibbsEvaluation", "graph_edges", "graph_terms", "grow_terms",
+    "helstrom_measurement", "helstrom_success", "LabelledData", "load_classifier", "load_model",
+    "load_training_data", "make_engine", "minimize", "moment_residuals", "NotFittedError",
+    "pauli_traces", "PauliExpansion", "PauliString", "pretty_good_measurement", "read_record",
+    "relative_entropy", "save_classifier", "save_model", "sparse_hamiltonian", "split_labelled",
+    "stratified_split", "success_probability", "TermGrowth", "TermSet", "ThermoseedError",
+    "to_pennylane", "trace_distance", "TrainingData", "VisibleGibbsModel", "von_neumann_entropy",
+    "write_record",
 ]

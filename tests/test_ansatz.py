@@ -1,8 +1,8 @@
-"""Ansatz templates, the closed-form template simulation and the user-ansatz wrapper.
+"""Template registry, the tensor simulation of built-ins and of user circuits, the wrapper.
 
 External reference throughout: PennyLane's own gate and template definitions, read through
 ``qml.matrix`` (an independent route: PennyLane decomposes the templates and multiplies gate
-matrices; ``bridge.unitaries`` applies hand-written tensor contractions).
+matrices; ``bridge.templates`` and ``bridge.ansatz`` apply hand-written tensor contractions).
 """
 
 from __future__ import annotations
@@ -18,6 +18,8 @@ from numerics import central_differences
 from thermoseed.bridge.ansatz import (
     TEMPLATES,
     ansatz_columns,
+    apply_ansatz,
+    circuit_operations,
     columns,
     make_ansatz,
     unitary,
@@ -78,7 +80,7 @@ def test_template_on_named_wires_matches_pennylane():
     np.testing.assert_allclose(np.asarray(unitary(ansatz, params)), ref, atol=MATRIX_ATOL)
 
 
-@pytest.mark.parametrize("name", TEMPLATES)
+@pytest.mark.parametrize("name", tuple(TEMPLATES))
 def test_columns_on_a_basis_subset(name):
     ansatz = make_ansatz(name, 3, 2)
     params = ansatz.random_params(3)
@@ -104,7 +106,7 @@ def test_columns_helper_runs_a_pennylane_circuit():
     np.testing.assert_allclose(one[0], full[:, 2], atol=MATRIX_ATOL)
 
 
-@pytest.mark.parametrize("name", TEMPLATES)
+@pytest.mark.parametrize("name", tuple(TEMPLATES))
 def test_unitary_gradient_matches_finite_differences(name):
     n = 3
     ansatz = make_ansatz(name, n, 2)
@@ -228,3 +230,178 @@ def test_wrong_number_of_wires_when_applied():
         ansatz.on([4])
     moved = ansatz.on([4, 5])
     assert moved.wires == (4, 5) and moved.shape == ansatz.shape
+
+
+# ------------------------------------------------------------------------ template registry
+
+
+def test_registry_entries_agree_with_pennylane():
+    assert {name for name, t in TEMPLATES.items() if t.min_wires == 2} == set(TWO_WIRE_TEMPLATES)
+    # Source: PennyLane's own template shape functions.
+    assert TEMPLATES["strong"].shape(3, 4) == qml.StronglyEntanglingLayers.shape(3, 4)
+    assert TEMPLATES["entangler"].shape(3, 4) == qml.BasicEntanglerLayers.shape(3, 4)
+    for name, template in TEMPLATES.items():
+        assert template.name == name
+        n = max(template.min_wires, 3)
+        ansatz = make_ansatz(name, n, 2)
+        # Source: qml.matrix at all-zero parameters; the flag says whether that is I.
+        at_zero = _pennylane_matrix(ansatz, np.zeros(ansatz.shape))
+        assert np.allclose(at_zero, np.eye(2**n), atol=1e-12) == template.identity_at_zero
+        if template.min_wires > 1:
+            with pytest.raises(ThermoseedError, match=f"at least {template.min_wires} wires"):
+                make_ansatz(name, template.min_wires - 1, 1)
+
+
+# ---------------------------------------------------------------- user circuits as tensors
+
+
+def _mixed_qfunc(params, wires):
+    """Every branch of the user-circuit simulation: runs of one-wire gates on a wire, monomial
+    gates with and without phases (CZ, CY, SWAP, Toffoli, CNOT), general two- and three-wire
+    gates, a global phase, adjoint and controlled gates, a barrier, a template to decompose."""
+    a, b, c, d = wires
+    qml.Hadamard(a)
+    qml.RX(params[0], b)
+    qml.CZ([a, b])
+    qml.S(c)
+    qml.RY(params[1], c)
+    qml.SWAP([a, d])
+    qml.Toffoli([a, b, c])
+    qml.CRX(params[2], [c, d])
+    qml.IsingZZ(params[3], [a, c])
+    qml.T(d)
+    qml.CY([d, a])
+    qml.PhaseShift(params[4], b)
+    qml.GlobalPhase(params[5])
+    qml.adjoint(qml.Rot)(params[6], params[7], params[8], wires=a)
+    qml.ctrl(qml.RZ, control=b)(params[9], wires=d)
+    qml.Barrier(wires=[a, b])
+    qml.QFT(wires=[b, c, d])
+    qml.CNOT([c, a])
+    qml.CNOT([b, d])
+    qml.RX(2 * params[10], a)
+    qml.MultiRZ(params[11], wires=[a, b, d])
+    qml.StronglyEntanglingLayers(anp.reshape(params, (1, 4, 3)), wires=wires)
+    qml.RZ(params[1], a)
+
+
+def test_user_circuit_unitary_matches_pennylane_on_every_gate_kind():
+    wires = ["w0", 3, "x", 1]
+    ansatz = user_ansatz(_mixed_qfunc, (12,), wires)
+    params = np.random.default_rng(3).uniform(0, 2 * np.pi, 12)
+    # Source: PennyLane qml.matrix of the user's function, in the ansatz's wire order.
+    ref = _pennylane_matrix(ansatz, params)
+    np.testing.assert_allclose(np.asarray(unitary(ansatz, params)), ref, atol=MATRIX_ATOL)
+    block = np.random.default_rng(4).standard_normal((16, 3))
+    np.testing.assert_allclose(np.asarray(apply_ansatz(ansatz, params, block)), ref @ block,
+                               atol=MATRIX_ATOL)
+
+
+# PennyLane's GlobalPhase matrix casts its real angle to complex; autograd's reverse cast of
+# the gradient (keeping the real part, the right gradient of a real parameter) warns.
+@pytest.mark.filterwarnings("ignore:Casting complex values to real")
+def test_user_circuit_gradient_matches_finite_differences():
+    ansatz = user_ansatz(_mixed_qfunc, (12,), [0, 1, 2, 3])
+    rng = np.random.default_rng(5)
+    params = rng.uniform(0, 2 * np.pi, 12)
+    block = rng.standard_normal((16, 3)) + 1j * rng.standard_normal((16, 3))
+    weights = rng.standard_normal((16, 3))
+
+    def scalar(p):
+        y = apply_ansatz(ansatz, p, block)
+        return anp.sum(weights * anp.real(y * anp.conj(y)))
+
+    grad = autograd.grad(scalar)(params)
+    # Source: central finite differences of the same scalar.
+    fd = central_differences(lambda p: float(scalar(p)), params)
+    np.testing.assert_allclose(grad, fd, atol=FD_ATOL * np.abs(fd).max(), rtol=0)
+    assert np.abs(grad).max() > 1e-2
+
+
+def test_strongly_entangling_user_circuit_matches_pennylane_and_builtin():
+    def circuit(params, wires):
+        qml.StronglyEntanglingLayers(params, wires=wires)
+
+    ansatz = user_ansatz(circuit, (3, 4, 3), range(4))
+    params = ansatz.random_params(8)
+    # Source: PennyLane qml.matrix of the template.
+    ref = _pennylane_matrix(ansatz, params)
+    u = np.asarray(unitary(ansatz, params))
+    np.testing.assert_allclose(u, ref, atol=MATRIX_ATOL)
+    np.testing.assert_allclose(u, np.asarray(unitary(make_ansatz("strong", 4, 3), params)),
+                               atol=MATRIX_ATOL)
+
+
+class _SparseSwap(qml.operation.Operation):
+    """A parameter-free gate known only by its sparse matrix."""
+
+    num_wires = 2
+    num_params = 0
+
+    @staticmethod
+    def compute_sparse_matrix(*params, **hyperparameters):
+        import scipy.sparse
+
+        return scipy.sparse.csr_matrix(_SWAP)
+
+
+class _SparsePhase(qml.operation.Operation):
+    """A parametrised one-wire phase gate known only by its sparse matrix."""
+
+    num_wires = 1
+    num_params = 1
+
+    @staticmethod
+    def compute_sparse_matrix(t, **hyperparameters):
+        import scipy.sparse
+
+        return scipy.sparse.csr_matrix(np.diag([1.0, np.exp(1j * t)]))
+
+
+# Source: textbook gate matrices (e.g. Nielsen & Chuang, section 4.2), written out by hand.
+_SWAP = np.array([[1, 0, 0, 0], [0, 0, 1, 0], [0, 1, 0, 0], [0, 0, 0, 1]], dtype=complex)
+_CNOT = np.array([[1, 0, 0, 0], [0, 1, 0, 0], [0, 0, 0, 1], [0, 0, 1, 0]], dtype=complex)
+
+
+def _rx(t):
+    return np.array([[np.cos(t / 2), -1j * np.sin(t / 2)], [-1j * np.sin(t / 2), np.cos(t / 2)]])
+
+
+def _ry(t):
+    return np.array([[np.cos(t / 2), -np.sin(t / 2)], [np.sin(t / 2), np.cos(t / 2)]])
+
+
+def test_parameter_free_sparse_gate_is_densified_and_differentiable():
+    def circuit(p, wires):
+        qml.RX(p[0], wires[0])
+        qml.RY(p[1], wires[1])
+        _SparseSwap(wires=wires)
+        qml.RX(p[2], wires[0])
+
+    ansatz = user_ansatz(circuit, (3,), [0, 1])
+    x = np.array([0.3, 1.1, -0.7])
+    assert circuit_operations(ansatz, x) is not None  # the tensor path, not the fallback
+    expected = np.kron(_rx(x[2]), np.eye(2)) @ _SWAP @ np.kron(_rx(x[0]), _ry(x[1]))
+    np.testing.assert_allclose(np.asarray(unitary(ansatz, x)), expected, atol=MATRIX_ATOL)
+
+    def scalar(p):
+        return anp.real(unitary(ansatz, p)[1, 2] * anp.conj(unitary(ansatz, p)[0, 0]))
+
+    fd = central_differences(lambda p: float(scalar(p)), x)  # Source: central FD.
+    np.testing.assert_allclose(autograd.grad(scalar)(x), fd, atol=FD_ATOL, rtol=0)
+    assert np.abs(fd).max() > 1e-2
+
+
+def test_gate_without_dense_matrix_or_decomposition_falls_back_to_default_qubit():
+    def circuit(p, wires):
+        qml.RX(p[0], wires[0])
+        _SparsePhase(0.4, wires=wires[1])
+        qml.CNOT(wires)
+
+    ansatz = user_ansatz(circuit, (1,), [0, 1])
+    x = np.array([0.2])
+    assert circuit_operations(ansatz, x) is None  # parametrised and sparse only: fallback
+    expected = _CNOT @ np.kron(_rx(0.2), np.diag([1.0, np.exp(0.4j)]))
+    np.testing.assert_allclose(np.asarray(unitary(ansatz, x)), expected, atol=MATRIX_ATOL)
+    rows = np.asarray(ansatz_columns(ansatz, x, [3, 1]))
+    np.testing.assert_allclose(rows, expected[:, [3, 1]].T, atol=MATRIX_ATOL)
