@@ -8,12 +8,16 @@ concentrates. With no head, the parameters are the compiled ``phi`` in the ansat
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 from pennylane import numpy as pnp
 
 from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import CompileResult, compile_latent
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.files import read_record, write_record
 
 #: Built-in heads whose all-zero parameters are exactly the identity.
 IDENTITY_AT_ZERO = ("soft",)
@@ -71,3 +75,38 @@ def warm_start(
         return pnp.array(phi, requires_grad=True)
     flat = np.concatenate([phi.ravel(), identity_head(head, head_identity).ravel()])
     return pnp.array(flat, requires_grad=True)
+
+
+WARM_START_KIND = "warm-start"
+#: How a two-block parameter vector is laid out (``bridge.circuits.TwoBlock``).
+TWO_BLOCK_LAYOUT = "flat [encoder.ravel(), head.ravel()]"
+
+
+def _describe(ansatz: Ansatz) -> dict:
+    return {"name": ansatz.name, "n_layers": ansatz.n_layers, "shape": list(ansatz.shape),
+            "n_wires": ansatz.n_wires, "builtin": ansatz.builtin}
+
+
+def save_warm_start(path, params, circuit: Ansatz, head: Ansatz | None = None,
+                    **info) -> Path:
+    """Write warm-start parameters as a versioned record (kind ``"warm-start"``): the
+    circuit (or encoder) and head templates, the parameter layout, and ``info`` (JSON-able,
+    e.g. the strategy and its quality numbers)."""
+    params = np.asarray(params, dtype=float)
+    if head is None:
+        circuit.check(params)
+        layout = f"the circuit's own shape {list(circuit.shape)}"
+    else:
+        TwoBlock(circuit, head).split(params)
+        layout = TWO_BLOCK_LAYOUT
+    header = {"circuit": _describe(circuit), "head": None if head is None else _describe(head),
+              "layout": layout, "info": info}
+    return write_record(path, WARM_START_KIND, header, {"params": params})
+
+
+def load_warm_start(path) -> tuple[np.ndarray, dict]:
+    """(parameters, header) from a ``"warm-start"`` record."""
+    header, arrays = read_record(path, WARM_START_KIND)
+    if "params" not in arrays:
+        raise ThermoseedError(f"{str(path)!r} is incomplete: missing 'params'")
+    return arrays["params"], header

@@ -77,7 +77,7 @@ def load_npz(path, *, what: str = "file") -> dict[str, np.ndarray]:
 
 FORMAT = "thermoseed-record"
 FORMAT_VERSION = 1
-_HEADER_KEY = "__header__"
+RECORD_HEADER = "__header__"
 
 
 def write_record(path, kind: str, header: dict[str, Any], arrays: dict[str, np.ndarray]) -> Path:
@@ -89,18 +89,18 @@ def write_record(path, kind: str, header: dict[str, Any], arrays: dict[str, np.n
         text = json.dumps(full, sort_keys=True, allow_nan=True)
     except TypeError as err:
         raise ThermoseedError(f"record header is not JSON-serialisable: {err}") from err
-    if _HEADER_KEY in arrays:
-        raise ThermoseedError(f"array name {_HEADER_KEY!r} is reserved")
-    return atomic_save_npz(path, {_HEADER_KEY: np.array(text), **arrays})
+    if RECORD_HEADER in arrays:
+        raise ThermoseedError(f"array name {RECORD_HEADER!r} is reserved")
+    return atomic_save_npz(path, {RECORD_HEADER: np.array(text), **arrays})
 
 
 def read_record(path, kind: str | None = None) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
     """Read a record; check format, version and (if given) kind. Returns (header, arrays)."""
     arrays = load_npz(path, what="record file")
-    if _HEADER_KEY not in arrays:
+    if RECORD_HEADER not in arrays:
         raise ThermoseedError(f"{str(path)!r} is not a thermoseed record (no header)")
     try:
-        header = json.loads(str(arrays.pop(_HEADER_KEY)))
+        header = json.loads(str(arrays.pop(RECORD_HEADER)))
     except (json.JSONDecodeError, ValueError) as err:
         raise ThermoseedError(f"{str(path)!r} has a corrupt header: {err}") from err
     if not isinstance(header, dict) or header.get("format") != FORMAT:

@@ -9,6 +9,7 @@ matrices (Hermitian, PSD, trace one), labels integers 0..C-1.
 from __future__ import annotations
 
 import hashlib
+from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
@@ -16,6 +17,7 @@ import numpy as np
 from .checks import real_number, seed_value
 from .data import check_density_matrix
 from .errors import ThermoseedError
+from .files import RECORD_HEADER, load_npz, read_record, write_record
 
 #: Largest deviation of a state vector's norm from one that is accepted as round-off.
 NORM_ATOL = 1e-8
@@ -129,3 +131,41 @@ def split_labelled(states, labels, *, test_fraction: float = 0.25,
                               f"{lab.shape}")
     train, test = stratified_split(lab, test_fraction, seed)
     return LabelledData(arr[train], lab[train], arr[test], lab[test]).check()
+
+
+LABELLED_KIND = "labelled-data"
+_PARTS = ("train_states", "train_labels", "test_states", "test_labels")
+
+
+def save_labelled(data: LabelledData, path) -> Path:
+    """Write ``data`` as one versioned record (kind ``"labelled-data"``)."""
+    data.check()
+    return write_record(path, LABELLED_KIND, {"n_qubits": data.n_qubits,
+                                              "train": len(data.train_labels),
+                                              "held_out": len(data.test_labels)},
+                        {k: np.asarray(v) for k, v in zip(_PARTS, data, strict=True)})
+
+
+def load_labelled(path, *, test_fraction: float = 0.25, seed: int = 0) -> LabelledData:
+    """Labelled data from a ``"labelled-data"`` record, or from a plain ``.npz`` in the
+    training-data schema (``states`` or ``density``, plus ``labels``), which is split here
+    by ``stratified_split(test_fraction, seed)``; held-out arrays ``test_states`` /
+    ``test_density`` + ``test_labels`` in the plain file are used as given instead."""
+    arrays = load_npz(path, what="labelled data file")
+    if RECORD_HEADER in arrays:
+        _, arrays = read_record(path, LABELLED_KIND)
+        missing = [k for k in _PARTS if k not in arrays]
+        if missing:
+            raise ThermoseedError(f"{str(path)!r} is incomplete: missing {missing}")
+        return LabelledData(*(arrays[k] for k in _PARTS)).check()
+    keys = [k for k in ("states", "density") if k in arrays]
+    if len(keys) != 1 or "labels" not in arrays:
+        raise ThermoseedError(
+            f"{str(path)!r} holds {sorted(arrays)}; labelled data needs exactly one of "
+            "'states' (B, 2^n) or 'density' (B, 2^n, 2^n), and 'labels' (B,) integers")
+    key = keys[0]
+    if f"test_{key}" in arrays and "test_labels" in arrays:
+        return LabelledData(arrays[key], arrays["labels"], arrays[f"test_{key}"],
+                            arrays["test_labels"]).check()
+    return split_labelled(arrays[key], arrays["labels"], test_fraction=test_fraction,
+                          seed=seed)

@@ -150,15 +150,13 @@ def _cmd_warm_start(args) -> int:
 
     from thermoseed.bridge.ansatz import make_ansatz
     from thermoseed.bridge.compile_record import load_compile
-    from thermoseed.bridge.warm_start import warm_start
-    from thermoseed.pretrain.files import atomic_save_npz
+    from thermoseed.bridge.warm_start import save_warm_start, warm_start
 
     result = load_compile(args.compile)
     head = make_ansatz(args.head, result.n_visible, args.head_layers) if args.head else None
     params = np.asarray(warm_start(result, head=head))
-    path = atomic_save_npz(args.out, {"params": params,
-                                      "encoder_shape": np.array(result.ansatz.shape),
-                                      "head_shape": np.array(head.shape if head else [])})
+    path = save_warm_start(args.out, params, result.ansatz, head, strategy="pretrained",
+                           model_fidelity=result.report.model_fidelity)
     print(_json({"params": str(path), "shape": list(params.shape)}))
     return 0
 
@@ -178,31 +176,14 @@ def _cmd_inspect(args) -> int:
     return 0
 
 
-def _load_labelled(path):
-    """A run folder's ``data.npz`` (``states``/``density``, ``labels`` and their ``test_``
-    counterparts) as classifier data."""
-    import numpy as np
-
-    from thermoseed.pretrain.files import load_npz
-    from thermoseed.pretrain.labelled import LabelledData
-
-    arrays = load_npz(path, what="data file")
-    key = "states" if "states" in arrays else "density"
-    needed = [key, "labels", f"test_{key}", "test_labels"]
-    missing = [k for k in needed if k not in arrays]
-    if missing:
-        raise ThermoseedError(
-            f"{path} lacks {missing}; labelled data needs {needed} (a run folder's data.npz)")
-    data = LabelledData(*(arrays[k] for k in needed))
-    return data.check(int(round(np.log2(np.shape(data.train_states)[1]))))
-
-
 def _cmd_sweep(args) -> int:
     from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 
     data = None
     if args.data:
-        labelled = _load_labelled(args.data)
+        from thermoseed.pretrain.labelled import load_labelled
+
+        labelled = load_labelled(args.data, seed=args.seed)
         data = {labelled.n_qubits: labelled}
     jobs = make_grid(args.sizes, args.strategies, range(args.seed, args.seed + args.seeds),
                      costs=args.costs, template=args.template, depths=args.depths)

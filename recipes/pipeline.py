@@ -29,11 +29,11 @@ from thermoseed.bridge.compile_record import save_compile
 from thermoseed.bridge.plateau.probes import PretrainSettings
 from thermoseed.bridge.plateau.report import write_report
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
-from thermoseed.bridge.warm_start import warm_start
+from thermoseed.bridge.warm_start import save_warm_start, warm_start
 from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
-from thermoseed.pretrain.labelled import LabelledData, split_labelled
+from thermoseed.pretrain.labelled import LabelledData, save_labelled, split_labelled
 from thermoseed.recipes.config import Recipe
 
 RUN_FILE = "run.json"
@@ -131,10 +131,8 @@ def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: b
         result = compile_latent(model, unit, restarts=comp.restarts, max_iter=comp.max_iter,
                                 seed=recipe.seed, data=td.rho, progress=progress)
         save_compile(result, out / "compile.npz")
-    params = np.asarray(warm_start(result, head=unit), dtype=float)
-    atomic_save_npz(out / "warm_start.npz", {"params": params,
-                                              "encoder_shape": np.array(unit.shape),
-                                              "head_shape": np.array(unit.shape)})
+    save_warm_start(out / "warm_start.npz", warm_start(result, head=unit), unit, unit,
+                    strategy="pretrained", model_fidelity=result.report.model_fidelity)
     run["fit"] = {"relative_entropy": model.loss_, "iterations": model.n_iter_,
                   "converged": bool(model.converged_), "terms": len(terms)}
     run["compile"] = {**result.report._asdict(), "latent_states": int(len(result.latent.basis))}
@@ -153,10 +151,7 @@ def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
         data = {m: classification_data(recipe.scenario, m, data_cfg.samples,
                                        data_cfg.test_fraction, seed + m) for m in sizes}
         main = data[n]
-        key = "states" if np.ndim(main.train_states) == 2 else "density"
-        atomic_save_npz(out / "data.npz", {key: main.train_states, "labels": main.train_labels,
-                                           f"test_{key}": main.test_states,
-                                           "test_labels": main.test_labels})
+        save_labelled(main, out / "data.npz")
     run["files"]["data"] = "data.npz"
     terms = graph_terms(n, model_cfg.graph, fields=model_cfg.fields,
                         couplings=model_cfg.couplings)

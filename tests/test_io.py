@@ -195,3 +195,46 @@ def test_failed_write_keeps_previous_file(tmp_path, fitted, monkeypatch, target)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["m.npz"]
     np.testing.assert_array_equal(load_model(path).coef_, fitted.coef_)
     assert os.replace is not boom
+
+
+def _labelled_batch(n=2, count=12, seed=0):
+    rng = np.random.default_rng(seed)
+    states = rng.standard_normal((count, 2**n)) + 1j * rng.standard_normal((count, 2**n))
+    states /= np.linalg.norm(states, axis=1, keepdims=True)
+    return states, np.arange(count) % 2
+
+
+def test_labelled_data_record_round_trip_and_plain_schema(tmp_path):
+    from thermoseed.pretrain.labelled import load_labelled, save_labelled, split_labelled
+
+    states, labels = _labelled_batch()
+    data = split_labelled(states, labels, test_fraction=0.25, seed=3)
+    header, _ = read_record(save_labelled(data, tmp_path / "d.npz"), "labelled-data")
+    assert header["train"] == 8 and header["held_out"] == 4
+    again = load_labelled(tmp_path / "d.npz")
+    for a, b in zip(again, data, strict=True):
+        np.testing.assert_array_equal(a, b)
+    # the training-data schema (states + labels) is split here, seeded and stratified
+    np.savez(tmp_path / "plain.npz", states=states, labels=labels)
+    split = load_labelled(tmp_path / "plain.npz", seed=3)
+    for a, b in zip(split, data, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert sorted(np.bincount(split.test_labels)) == [2, 2]
+    np.savez(tmp_path / "both.npz", states=states, density=np.zeros((12, 4, 4)), labels=labels)
+    with pytest.raises(ThermoseedError, match="exactly one of 'states'"):
+        load_labelled(tmp_path / "both.npz")
+
+
+def test_warm_start_record_says_its_layout(tmp_path):
+    from thermoseed.bridge.ansatz import make_ansatz
+    from thermoseed.bridge.warm_start import load_warm_start, save_warm_start
+
+    enc, head = make_ansatz("strong", 2, 1), make_ansatz("soft", 2, 1)
+    params = np.arange(enc.n_params + head.n_params, dtype=float)
+    save_warm_start(tmp_path / "w.npz", params, enc, head, strategy="pretrained")
+    loaded, header = load_warm_start(tmp_path / "w.npz")
+    np.testing.assert_array_equal(loaded, params)
+    assert header["layout"].startswith("flat [encoder") and header["head"]["name"] == "soft"
+    assert header["info"] == {"strategy": "pretrained"}
+    with pytest.raises(ThermoseedError, match="flat parameter vector of length"):
+        save_warm_start(tmp_path / "bad.npz", params[:-1], enc, head)
