@@ -309,3 +309,23 @@ def test_recipe_is_frozen_and_typed():
     assert isinstance(recipe.model.couplings, tuple) and recipe.data.qubits == 4
     assert recipe.fingerprint() == load_recipe("magnet-phase").fingerprint()
     assert recipe.fingerprint() != load_recipe("magnet-phase", seed=1).fingerprint()
+
+
+def test_help_imports_no_numerical_library():
+    """`thermoseed --help` stays instant: imports measured (not timed), scipy, pennylane and
+    numpy's linear algebra are never loaded."""
+    code = ("import sys\nfrom thermoseed.recipes.cli import main\n"
+            "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+            "print(sorted(m for m in ('scipy', 'pennylane', 'autograd') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.strip().splitlines()[-1]
+    assert out == "[]"
+
+
+def test_package_roots_export_lazily():
+    import thermoseed.pretrain as pretrain
+
+    assert "GibbsClassifier" in dir(pretrain) and "GibbsClassifier" in pretrain.__all__
+    assert pretrain.VisibleGibbsModel.__module__ == "thermoseed.pretrain.models"
+    with pytest.raises(AttributeError, match="no attribute 'Nope'"):
+        pretrain.Nope  # noqa: B018
