@@ -7,6 +7,6 @@ gradient probes, statistics, sweeps, reports). It imports ``thermoseed.pretrain`
 
 Layer order, lowest first (a module imports only modules before it):
     templates -> ansatz -> circuits -> compile -> readout_compile -> compile_record ->
-    warm_start -> classifier -> eigensolver -> plateau.gradients -> plateau.probes ->
-    plateau.stats -> plateau.sweep -> plateau.report
+    warm_start -> classifier -> eigensolver -> plateau.gradients -> plateau.strategies ->
+    plateau.probes -> plateau.stats -> plateau.sweep -> plateau.report
 """

@@ -148,7 +148,7 @@ def user_ansatz(qfunc: Callable, shape: Sequence[int], wires: Sequence,
     return ansatz
 
 
-def columns(gates: Callable[[object], None], params, n_wires: int, basis=None):
+def columns(gates: Callable[[object], None], params, n_wires: int, basis=None) -> object:
     """States ``G(params)|x>`` for basis indices ``x`` (default all) as rows, differentiably.
 
     ``gates(params)`` applies a circuit on wires ``0..n_wires-1``. One broadcast
@@ -240,7 +240,7 @@ def _monomial(mat: np.ndarray, positions, n: int):
     return src, mat[local, col]
 
 
-def circuit_apply(ops, wires: Sequence, block):
+def circuit_apply(ops: list, wires: Sequence, block) -> object:
     """``G_m ... G_1 @ block`` for the gates ``ops`` from ``circuit_operations`` on ``wires``.
 
     Gates are held back while that is exact: one-wire gates multiply into a pending 2x2 per
@@ -294,7 +294,7 @@ def circuit_apply(ops, wires: Sequence, block):
     return out
 
 
-def apply_ansatz(ansatz: Ansatz, params, block):
+def apply_ansatz(ansatz: Ansatz, params, block) -> object:
     """``U(params) @ block`` for a (2^n, k) ``block``, differentiably (autograd), one pass.
 
     Built-ins use their tensor form; a user's function its recorded gates (``circuit_apply``),
@@ -311,13 +311,13 @@ def apply_ansatz(ansatz: Ansatz, params, block):
     return anp.dot(anp.transpose(rows), block)
 
 
-def ansatz_columns(ansatz: Ansatz, params, basis=None):
+def ansatz_columns(ansatz: Ansatz, params, basis=None) -> object:
     """Rows ``U(params)|x>`` for basis indices ``x`` (default all), differentiably."""
     d = 2**ansatz.n_wires
     block = np.eye(d) if basis is None else np.eye(d)[:, np.asarray(basis)]
     return anp.transpose(apply_ansatz(ansatz, params, block))
 
 
-def unitary(ansatz: Ansatz, params):
+def unitary(ansatz: Ansatz, params) -> object:
     """The full matrix ``U(params)`` on the ansatz's wires, differentiably (autograd)."""
     return apply_ansatz(ansatz, params, np.eye(2**ansatz.n_wires))

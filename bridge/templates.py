@@ -5,8 +5,8 @@ parameter shape ``(n_layers, n_wires) -> shape``, the fast tensor form, the mini
 and whether all-zero parameters give exactly the identity.
 
 Fast tensor form: a block ``S`` (d x k, d = 2^n) is kept as a (d, k) array whose row index
-carries the wires, wire 0 = most significant bit. A one-wire gate ``m`` on wire ``w`` is one
-batched product ``m @ S.reshape(2^w, 2, -1)``; a CNOT pattern is one row permutation (its
+carries the wires, wire 0 = most significant bit. A one-wire gate ``m`` on wire ``w`` acts on
+``S.reshape(2^w, 2, -1)`` along its middle axis; a CNOT pattern is one row permutation (its
 vector-Jacobian product is the inverse permutation, no scatter); CRX acts on the control-1
 half. No circuit is built per evaluation; every template is checked against ``qml.matrix``
 in the tests, and the same kernels run the user's circuits in ``bridge.ansatz``.
@@ -64,7 +64,7 @@ def apply_1q(block, mat, wire: int):
     return anp.reshape(anp.matmul(mat, anp.reshape(block, (2**wire, 2, -1))), shape)
 
 
-def contract_1q(block, mat, wire: int):
+def _contract_1q(block, mat, wire: int):
     """The same product as ``apply_1q`` as one (2 x 2) @ (2 x d k / 2) contraction: slower
     for large blocks, but the built-ins keep the rounding of their first release, so
     compiles reproduce earlier results bit for bit."""
@@ -100,7 +100,7 @@ def _permute_rows_vjp(ans, block, perm, phase=None):
 defvjp(permute_rows, _permute_rows_vjp)
 
 
-def cnot_permutation(n: int, pairs) -> np.ndarray:
+def _cnot_permutation(n: int, pairs) -> np.ndarray:
     """Row-gather index ``perm``: applying the CNOTs ``(control, target)`` in order maps
     ``block`` to ``block[perm]``."""
     idx = np.arange(2**n)
@@ -116,13 +116,13 @@ def _controlled_1q(block, mat, control: int, target: int):
     k = block.shape[1]
     halves = anp.reshape(block, (2**control, 2, -1))
     off, on = halves[:, 0], halves[:, 1]
-    on = anp.reshape(contract_1q(anp.reshape(on, (-1, k)), mat, target - 1), off.shape)
+    on = anp.reshape(_contract_1q(anp.reshape(on, (-1, k)), mat, target - 1), off.shape)
     return anp.reshape(anp.stack([off, on], axis=1), (-1, k))
 
 
 def _rotations(block, mats):
     for wire in range(mats.shape[0]):
-        block = contract_1q(block, mats[wire], wire)
+        block = _contract_1q(block, mats[wire], wire)
     return block
 
 
@@ -167,19 +167,19 @@ def _strong_layer(block, layer, n, index):
     if n == 1:
         return block
     r = (index % (n - 1)) + 1
-    return permute_rows(block, cnot_permutation(n, [(i, (i + r) % n) for i in range(n)]))
+    return permute_rows(block, _cnot_permutation(n, [(i, (i + r) % n) for i in range(n)]))
 
 
 def _entangler_layer(block, layer, n, index):
     block = _rotations(block, ry_matrices(layer))
     if n == 1:
         return block
-    return permute_rows(block, cnot_permutation(n, [(0, 1)] if n == 2 else _ring(n)))
+    return permute_rows(block, _cnot_permutation(n, [(0, 1)] if n == 2 else _ring(n)))
 
 
 def _ladder_layer(block, layer, n, index):
     block = _rotations(block, anp.matmul(rz_matrices(layer[:, 1]), ry_matrices(layer[:, 0])))
-    return permute_rows(block, cnot_permutation(n, [(i, i + 1) for i in range(n - 1)]))
+    return permute_rows(block, _cnot_permutation(n, [(i, i + 1) for i in range(n - 1)]))
 
 
 def _soft_layer(block, layer, n, index):

@@ -1,0 +1,337 @@
+"""Compile a class decision rule into a circuit: maximise the success probability of a readout.
+
+Given per-class density matrices sigma_c (c = 0..C-1, e.g. fitted Gibbs states), priors p_c,
+a parameterised unitary U(phi) and readout wires, maximise
+    ``P(phi) = sum_c p_c Tr(Pi_c U(phi) sigma_c U(phi)^dag)``,
+where ``Pi_c`` projects the readout wires onto the computational-basis pattern c (first
+readout wire = most significant bit; patterns >= C decide no class). With two classes and one
+readout wire (class 1 <-> outcome 1, ``p(class 1) = (1 - <Z>)/2``):
+    ``P = p_0 + Tr((Pi_1 (x) I) U Gamma U^dag)``,  ``Gamma = p_1 sigma_1 - p_0 sigma_0``.
+
+Evaluation: with ``sigma_c = sum_j l_cj |v_cj><v_cj|`` (or Gamma's eigenvectors in the binary
+case) only the block ``Y = U [v]`` (d x rank) is needed, ``P = const + sum_ij A_ij |Y_ij|^2``
+with ``A_ij`` = weight of column j on rows i whose readout pattern is column j's class. ``Y``
+comes from one pass of ``bridge.ansatz.apply_ansatz`` and its gradient from autograd.
+
+Bounds reported alongside:
+  * two classes: Helstrom ``P* = 1/2 (1 + ||p_1 sigma_1 - p_0 sigma_0||_1)``, the best of any
+    measurement (C. W. Helstrom, Quantum Detection and Estimation Theory, 1976);
+  * more classes: the pretty-good-measurement success ``P_pgm = sum_c Tr((p_c sigma_c
+    rho^{-1/2})^2)``, ``rho = sum_c p_c sigma_c`` (P. Hausladen and W. K. Wootters, A 'pretty
+    good' measurement for distinguishing quantum states, 1994), a lower bound on the optimum,
+    and the upper bound ``sqrt(P_pgm)`` (H. Barnum and E. Knill, Reversing quantum dynamics
+    with near-optimal quantum and classical fidelity, 2002), reported as ``bound``;
+  * two classes on one readout wire: ``Pi_1 (x) I`` has rank d/2, so no circuit beats
+    ``p_0 + (sum of the d/2 largest eigenvalues of Gamma)`` (Ky Fan's maximum principle,
+    K. Fan, On a theorem of Weyl concerning eigenvalues of linear transformations, 1949),
+    reported as ``attainable``; it equals Helstrom when Gamma has at most d/2 positive and at
+    most d/2 negative eigenvalues.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+import warnings
+from collections.abc import Callable, Sequence
+from typing import NamedTuple
+
+import autograd
+import autograd.numpy as anp
+import numpy as np
+import scipy.optimize
+from tqdm.auto import tqdm
+
+from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
+from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
+
+#: Tolerance on Hermiticity, trace and positivity of an input density matrix.
+STATE_ATOL = 1e-8
+#: Eigen-directions of a state (or of Gamma) with |weight| at or below this are dropped: the
+#: objective moves by at most d times this.
+RANK_CUT = 1e-13
+#: A start that comes this close to ``attainable`` (or ``bound``) ends the search.
+TARGET_GAP = 1e-10
+
+
+class ReadoutCompileResult(NamedTuple):
+    """Output of ``readout_compile``.
+
+    ``params`` (ansatz shape) reach success ``success``; ``bound`` is an upper bound on any
+    measurement's success (Helstrom for two classes), ``attainable`` the best any circuit
+    reaches with this readout (two classes on one wire, else None), ``pgm`` the
+    pretty-good-measurement success. ``history``: success per iteration of the best start.
+    """
+
+    params: np.ndarray
+    success: float
+    bound: float
+    readout: tuple
+    priors: np.ndarray
+    history: list[float]
+    converged: bool
+    iterations: int
+    seconds: float
+    attainable: float | None
+    pgm: float
+    starts: int
+
+
+# ------------------------------------------------------------------------------ validation
+
+
+def _as_states(states, d: int) -> list[np.ndarray]:
+    if isinstance(states, np.ndarray) and states.ndim == 3:
+        states = list(states)
+    states = [s.state() if callable(getattr(s, "state", None)) else s for s in states]
+    if len(states) < 2:
+        raise ThermoseedError(f"need at least 2 class states, got {len(states)}")
+    out = []
+    for c, s in enumerate(states):
+        s = np.asarray(s)
+        if s.shape != (d, d):
+            raise ThermoseedError(
+                f"class {c}: density matrix of shape {s.shape}, but the ansatz acts on "
+                f"{int(np.log2(d))} wires: expected ({d}, {d})")
+        if not np.all(np.isfinite(s)):
+            raise ThermoseedError(f"class {c}: density matrix contains NaN or inf")
+        if np.abs(s - s.conj().T).max() > STATE_ATOL:
+            raise ThermoseedError(
+                f"class {c}: density matrix is not Hermitian (max |sigma - sigma^dag| = "
+                f"{np.abs(s - s.conj().T).max():.2e})")
+        s = 0.5 * (s + s.conj().T)
+        trace = float(np.trace(s).real)
+        if abs(trace - 1.0) > STATE_ATOL:
+            raise ThermoseedError(f"class {c}: density matrix has trace {trace:.6g}; divide "
+                                  "it by its trace")
+        low = float(np.linalg.eigvalsh(s)[0])
+        if low < -STATE_ATOL:
+            raise ThermoseedError(f"class {c}: density matrix has a negative eigenvalue "
+                                  f"{low:.2e}; it is not positive semidefinite")
+        out.append(s)
+    return out
+
+
+def _as_priors(priors, n_classes: int) -> np.ndarray:
+    if priors is None:
+        return np.full(n_classes, 1.0 / n_classes)
+    p = np.asarray(priors, dtype=float)
+    if p.shape != (n_classes,):
+        raise ThermoseedError(f"priors must have one entry per class ({n_classes}), got shape "
+                              f"{p.shape}")
+    if not np.all(np.isfinite(p)) or np.any(p < 0) or abs(p.sum() - 1.0) > 1e-9:
+        raise ThermoseedError(f"priors must be non-negative and sum to 1, got {p.tolist()}")
+    return p
+
+
+def _as_readout(readout, ansatz: Ansatz, n_classes: int) -> tuple:
+    if readout is None:
+        m = max(1, int(np.ceil(np.log2(n_classes))))
+        if m > ansatz.n_wires:
+            raise ThermoseedError(f"{n_classes} classes need {m} readout wires; the ansatz has "
+                                  f"{ansatz.n_wires}")
+        return tuple(ansatz.wires[:m])
+    if isinstance(readout, np.ndarray):
+        readout = readout.tolist()
+    if isinstance(readout, (str, int, np.integer)) or not isinstance(readout, Sequence):
+        readout = (readout,)
+    readout = tuple(readout)
+    stray = [w for w in readout if w not in ansatz.wires]
+    if stray or len(set(readout)) != len(readout) or not readout:
+        raise ThermoseedError(f"readout wires {readout} must be distinct wires of the ansatz "
+                              f"{ansatz.wires}")
+    if 2 ** len(readout) < n_classes:
+        raise ThermoseedError(f"{n_classes} classes need at least "
+                              f"{int(np.ceil(np.log2(n_classes)))} readout wires, got {readout}")
+    return readout
+
+
+def _patterns(ansatz: Ansatz, readout: tuple) -> np.ndarray:
+    """Readout pattern of each basis row (first readout wire = most significant bit)."""
+    n, rows = ansatz.n_wires, np.arange(2**ansatz.n_wires)
+    pattern = np.zeros_like(rows)
+    for w in readout:
+        pattern = (pattern << 1) | ((rows >> (n - 1 - ansatz.wires.index(w))) & 1)
+    return pattern
+
+
+# ---------------------------------------------------------------------------- bounds
+
+
+def helstrom_success(sigma0: np.ndarray, sigma1: np.ndarray, p0: float = 0.5) -> float:
+    """``1/2 (1 + ||p_1 sigma_1 - p_0 sigma_0||_1)``, the best success of any measurement
+    telling sigma_0 from sigma_1 (Helstrom 1976)."""
+    gamma = (1.0 - p0) * np.asarray(sigma1) - p0 * np.asarray(sigma0)
+    return float(0.5 * (1.0 + np.abs(np.linalg.eigvalsh(0.5 * (gamma + gamma.conj().T))).sum()))
+
+
+def pgm_success(states: Sequence[np.ndarray], priors) -> float:
+    """Pretty-good-measurement success ``sum_c Tr((p_c sigma_c rho^{-1/2})^2)``,
+    ``rho = sum_c p_c sigma_c``, inverse on rho's support (Hausladen & Wootters 1994)."""
+    weighted = [p * np.asarray(s) for p, s in zip(priors, states, strict=True)]
+    vals, vecs = np.linalg.eigh(sum(weighted))
+    keep = vals > RANK_CUT * max(1.0, vals.max())
+    root = (vecs[:, keep] / np.sqrt(vals[keep])) @ vecs[:, keep].conj().T
+    return float(sum(np.trace(w @ root @ w @ root).real for w in weighted))
+
+
+def readout_bounds(states, priors, n_readout: int = 1) -> tuple[float, float, float | None]:
+    """``(bound, pgm, attainable)`` as in the module docstring."""
+    pgm = pgm_success(states, priors)
+    if len(states) > 2:
+        return min(1.0, float(np.sqrt(pgm))), pgm, None
+    bound = helstrom_success(states[0], states[1], priors[0])
+    if n_readout != 1:
+        return bound, pgm, None
+    gamma = priors[1] * states[1] - priors[0] * states[0]
+    vals = np.linalg.eigvalsh(gamma)
+    return bound, pgm, float(priors[0] + vals[len(vals) // 2:].sum())
+
+
+# ------------------------------------------------------------------------------ objective
+
+
+class _Problem(NamedTuple):
+    """Validated inputs and the block form ``P = const + sum_ij weights_ij |(U block)_ij|^2``."""
+
+    states: list
+    priors: np.ndarray
+    readout: tuple
+    const: float
+    block: np.ndarray
+    weights: np.ndarray
+
+
+def _problem(states, ansatz: Ansatz, readout, priors) -> _Problem:
+    if not isinstance(ansatz, Ansatz):
+        raise ThermoseedError(f"ansatz must be an Ansatz (make_ansatz / user_ansatz), got "
+                              f"{type(ansatz).__name__}")
+    states = _as_states(states, 2**ansatz.n_wires)
+    priors = _as_priors(priors, len(states))
+    readout = _as_readout(readout, ansatz, len(states))
+    pattern = _patterns(ansatz, readout)
+    if len(states) == 2 and len(readout) == 1:
+        vals, vecs = np.linalg.eigh(priors[1] * states[1] - priors[0] * states[0])
+        keep = np.abs(vals) > RANK_CUT
+        weights = (pattern == 1)[:, None] * vals[keep][None, :]
+        return _Problem(states, priors, readout, float(priors[0]), vecs[:, keep], weights)
+    columns, parts = [], []
+    for c, (p, s) in enumerate(zip(priors, states, strict=True)):
+        vals, vecs = np.linalg.eigh(s)
+        keep = p * vals > RANK_CUT
+        columns.append(vecs[:, keep])
+        parts.append((pattern == c)[:, None] * (p * vals[keep])[None, :])
+    return _Problem(states, priors, readout, 0.0, np.hstack(columns), np.hstack(parts))
+
+
+def _success_function(ansatz: Ansatz, problem: _Problem) -> Callable:
+    const, block, weights = problem.const, problem.block, problem.weights
+
+    def success(params):
+        y = apply_ansatz(ansatz, params, block)
+        return const + anp.sum(weights * anp.real(y * anp.conj(y)))
+
+    return success
+
+
+def readout_objective(states, ansatz: Ansatz, readout=None, priors=None) -> Callable:
+    """``P(params)`` of the module docstring as an autograd-differentiable function of
+    parameters in the ansatz shape (inputs validated here)."""
+    return _success_function(ansatz, _problem(states, ansatz, readout, priors))
+
+
+# ------------------------------------------------------------------------------- compile
+
+
+def _starts(ansatz: Ansatz, init, small_angle, restarts: int, seed: int, init_scale: float):
+    """Starts in order: ``init``, the small-angle start (seed child 0), ``restarts`` uniform
+    starts (seed children 1..restarts, so start k does not depend on ``restarts``)."""
+    children = np.random.SeedSequence(seed).spawn(restarts + 1)
+    out = [] if init is None else [np.asarray(ansatz.check(np.asarray(init, float)), float)]
+    if small_angle is not None:
+        rng = np.random.default_rng(children[0])
+        out.append(rng.uniform(-small_angle, small_angle, ansatz.shape))
+    out += [np.random.default_rng(c).uniform(0.0, init_scale, ansatz.shape)
+            for c in children[1:]]
+    if not out:
+        raise ThermoseedError("no starting point: use restarts >= 1, small_angle or init")
+    return out
+
+
+def _iteration_callback(history: list, bar, bound: float, target: float):
+    """scipy callback: record the success, advance the bar, stop once ``target`` is met."""
+
+    def callback(intermediate_result):
+        history.append(-float(intermediate_result.fun))
+        bar.update(1)
+        bar.set_postfix(success=f"{history[-1]:.6f}", bound=f"{bound:.6f}", refresh=False)
+        if history[-1] >= target:
+            raise StopIteration
+
+    return callback
+
+
+def readout_compile(
+    states, ansatz: Ansatz, readout=None, *, priors=None, restarts: int = 4, seed: int = 0,
+    small_angle: float | None = 0.1, init=None, max_iter: int = 500, tol: float = 1e-7,
+    init_scale: float = 2 * np.pi, progress: bool = False,
+) -> ReadoutCompileResult:
+    """Maximise ``P(phi)`` (module docstring) over the ansatz parameters.
+
+    Args:
+        states: C density matrices (d x d, d = 2^ansatz.n_wires) or fitted models (their
+            ``state()``), class c first.
+        ansatz: built-in (``make_ansatz``) or the user's own (``user_ansatz``).
+        readout: readout wire(s) of the ansatz; default its first ceil(log2 C) wires.
+        priors: class priors (default uniform).
+        restarts, seed, init_scale: seeded uniform starts on ``[0, init_scale)``.
+        small_angle: one extra start uniform on ``[-small_angle, small_angle]`` (None: none).
+        init: optional start of your own (ansatz shape), tried first.
+        max_iter, tol: L-BFGS iterations per start; converged when max |dP/dphi| <= tol.
+        progress: tqdm bar on stderr, one step per iteration.
+
+    The search stops early once a start is within 1e-10 of ``attainable`` (two classes on
+    one wire) or of ``bound``.
+    """
+    if max_iter < 1 or tol <= 0 or restarts < 0:
+        raise ThermoseedError(f"need max_iter >= 1, tol > 0, restarts >= 0; got {max_iter}, "
+                              f"{tol}, {restarts}")
+    if small_angle is not None and not small_angle > 0:
+        raise ThermoseedError(f"small_angle must be > 0 or None, got {small_angle}")
+    t0 = time.perf_counter()
+    problem = _problem(states, ansatz, readout, priors)
+    success = _success_function(ansatz, problem)
+    bound, pgm, attainable = readout_bounds(problem.states, problem.priors, len(problem.readout))
+    target = (attainable if attainable is not None else bound) - TARGET_GAP
+    value_and_grad = autograd.value_and_grad(lambda x: -success(anp.reshape(x, ansatz.shape)))
+
+    def fun(x):
+        value, grad = value_and_grad(x)
+        return float(value), np.asarray(grad, dtype=float)
+
+    starts = _starts(ansatz, init, small_angle, restarts, seed, init_scale)
+    best = None
+    with tqdm(total=len(starts) * max_iter, desc="readout compile", file=sys.stderr,
+              disable=not progress, leave=False) as bar:
+        for x0 in starts:
+            history: list[float] = []
+            res = scipy.optimize.minimize(
+                fun, x0.ravel(), jac=True, method="L-BFGS-B",
+                callback=_iteration_callback(history, bar, bound, target),
+                options={"maxiter": max_iter, "gtol": tol, "ftol": 1e-15, "maxcor": 20})
+            bar.update(max_iter - len(history))
+            value, grad = fun(res.x)
+            run = (-value, res.x, history, float(np.abs(grad).max()))
+            if best is None or run[0] > best[0]:
+                best = run
+            if best[0] >= target:
+                break
+    p_best, x, history, gmax = best
+    converged = gmax <= tol or p_best >= target
+    if not converged:
+        warnings.warn(f"readout compile stopped with max |dP/dphi| = {gmax:.2g} > tol = {tol:g}"
+                      "; raise max_iter or restarts", ConvergenceWarning, stacklevel=2)
+    return ReadoutCompileResult(
+        np.asarray(x, float).reshape(ansatz.shape), float(p_best), bound, problem.readout,
+        problem.priors, history, bool(converged), len(history), time.perf_counter() - t0,
+        attainable, pgm, len(starts))
