@@ -80,6 +80,12 @@ class TwoBlock:
         v = anp.transpose(ansatz_columns(self.head, head))
         return anp.dot(v, anp.conj(anp.transpose(u)))
 
+    def as_ansatz(self) -> Ansatz:
+        """This circuit as one ``Ansatz`` over the flat parameters (for compiles that take an
+        ansatz, e.g. a readout compile of the whole classifier circuit)."""
+        return Ansatz(f"two-block {self.encoder.name}/{self.head.name}", self.__call__,
+                      self.shape, self.encoder.wires, None)
+
     def __call__(self, params, wires: Sequence | None = None) -> None:
         """Queue ``U_enc(e)^dag`` then ``U_head(h)`` on ``wires`` (PennyLane gates)."""
         enc, head = self.split(params)

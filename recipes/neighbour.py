@@ -18,7 +18,7 @@ from tqdm.auto import tqdm
 from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import CompileResult
 from thermoseed.bridge.eigensolver import run_eigensolver
-from thermoseed.bridge.plateau.probes import PERTURBATION_SCALE, make_strategy
+from thermoseed.bridge.plateau.strategies import PERTURBATION_SCALE, make_strategy
 from thermoseed.bridge.warm_start import identity_head
 
 

@@ -26,8 +26,8 @@ import numpy as np
 from thermoseed.bridge.ansatz import make_ansatz
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.compile_record import save_compile
-from thermoseed.bridge.plateau.probes import PretrainSettings
 from thermoseed.bridge.plateau.report import write_report
+from thermoseed.bridge.plateau.strategies import PretrainSettings
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.bridge.warm_start import save_warm_start, warm_start
 from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms

@@ -14,22 +14,24 @@ import pytest
 from thermoseed.bridge.ansatz import make_ansatz, unitary
 from thermoseed.bridge.plateau.gradients import CircuitGradient
 from thermoseed.bridge.plateau.probes import (
-    PretrainSettings,
-    identity_blocks,
-    make_strategy,
     probe,
     probe_circuit,
     probe_seeds,
     product_state,
-    small_angle,
     train_curve,
-    uniform,
 )
 from thermoseed.bridge.plateau.stats import (
     fit_decay,
     gradient_matrix,
     gradient_stats,
     summarize_curves,
+)
+from thermoseed.bridge.plateau.strategies import (
+    PretrainSettings,
+    identity_blocks,
+    make_strategy,
+    small_angle,
+    uniform,
 )
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.labelled import LabelledData

@@ -25,7 +25,6 @@ gradient; ``ProbeResult.active`` marks the others and the statistics use only th
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from typing import NamedTuple
 
 import autograd
@@ -33,146 +32,14 @@ import numpy as np
 from pennylane import numpy as pnp
 
 from thermoseed.bridge.ansatz import Ansatz, make_ansatz
-from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
-from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.plateau.gradients import CircuitGradient, active_mask
-from thermoseed.bridge.warm_start import warm_start
-from thermoseed.pretrain import VisibleGibbsModel, as_training_data, graph_terms
+from thermoseed.bridge.plateau.strategies import PretrainSettings, Strategy, make_strategy
 from thermoseed.pretrain.checks import integer_in, seed_value
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.labelled import LabelledData
 
 COSTS = ("local", "global", "classifier")
-STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretrained_perturbed")
-#: Default standard deviation of the small-angle strategy (radians).
-SMALL_ANGLE_SCALE = 0.1
-#: Default standard deviation of the perturbation added by ``pretrained_perturbed`` (radians).
-PERTURBATION_SCALE = 0.05
-
-Init = Callable[[tuple, np.random.Generator], np.ndarray]
-
-
-class Strategy(NamedTuple):
-    """A named initialisation: ``init(shape, rng) -> ndarray`` (deterministic given rng)."""
-
-    name: str
-    init: Init
-    options: dict
-
-    def __call__(self, shape, rng: np.random.Generator) -> np.ndarray:
-        return self.init(tuple(shape), rng)
-
-
-def uniform() -> Strategy:
-    """Every angle i.i.d. uniform on ``[0, 2 pi)``."""
-    return Strategy("uniform", lambda shape, rng: rng.uniform(0.0, 2 * np.pi, size=shape), {})
-
-
-def small_angle(scale: float = SMALL_ANGLE_SCALE) -> Strategy:
-    """Every angle i.i.d. ``N(0, scale^2)`` (Zhang et al., arXiv:2203.09376, who take
-    ``scale^2 ~ 1/depth``)."""
-    s = _positive(scale, "scale")
-    return Strategy("small_angle", lambda shape, rng: s * rng.standard_normal(shape),
-                    {"scale": s})
-
-
-def identity_blocks() -> Strategy:
-    """Grant et al. (arXiv:1903.05076): ``e`` uniform on ``[0, 2 pi)`` and ``h = e``, so
-    ``V = U(h) U(e)^dag = I`` at initialisation. Needs the flat parameters of a two-block
-    circuit whose blocks share one template (an even length ``2 k``)."""
-
-    def init(shape, rng):
-        if len(shape) != 1 or shape[0] % 2:
-            raise ThermoseedError(
-                f"identity_blocks needs the flat parameters [e, h] of a two-block circuit with "
-                f"one template for both blocks (even length), got shape {shape}"
-            )
-        e = rng.uniform(0.0, 2 * np.pi, size=shape[0] // 2)
-        return np.concatenate([e, e])
-
-    return Strategy("identity_blocks", init, {})
-
-
-class PretrainSettings(NamedTuple):
-    """Gibbs model and compile options of the pretrained strategies (all JSON-able)."""
-
-    graph: str = "line"
-    fields: str = "XZ"
-    couplings: tuple = ("ZZ",)
-    l2: float = 1e-3
-    restarts: int = 1
-    compile_iter: int = 300
-
-
-def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
-               settings: PretrainSettings | None = None,
-               perturbation: float = 0.0) -> Strategy:
-    """Warm start from an independent pre-training run per draw.
-
-    ``init((n_params,), rng)`` (flat ``[e, h]``): bootstrap-resample the training states
-    (B draws with replacement, from rng), fit ``VisibleGibbsModel`` on them,
-    ``compile_latent`` into the encoder (compile seed from rng), ``warm_start``
-    (head = zeros = identity), then add
-    ``N(0, perturbation^2)`` to every angle when ``perturbation > 0``.
-    """
-    settings = PretrainSettings() if settings is None else settings
-    n = encoder.n_wires
-    terms = graph_terms(n, settings.graph, fields=settings.fields,
-                        couplings=tuple(settings.couplings))
-    states = np.asarray(data.train_states)
-    blocks = TwoBlock(encoder, head)
-    pert = float(perturbation)
-    if not np.isfinite(pert) or pert < 0:
-        raise ThermoseedError(f"perturbation must be a finite number >= 0, got {perturbation!r}")
-
-    def init(shape, rng):
-        if tuple(shape) != blocks.shape:
-            raise ThermoseedError(
-                f"pretrained init is for the flat shape {blocks.shape}, got {shape}"
-            )
-        boot = rng.integers(0, len(states), size=len(states))
-        kind = "states" if states.ndim == 2 else "density"
-        td = as_training_data(states[boot], kind=kind)
-        model = VisibleGibbsModel(terms, l2=settings.l2).fit(td)
-        result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
-                                restarts=int(settings.restarts),
-                                max_iter=int(settings.compile_iter))
-        out = np.asarray(warm_start(result, head=head), dtype=float)
-        if pert > 0:
-            out = out + pert * rng.standard_normal(shape)
-        return out
-
-    name = "pretrained_perturbed" if pert > 0 else "pretrained"
-    return Strategy(name, init, {"perturbation": pert, **settings._asdict()})
-
-
-def make_strategy(name: str, *, scale: float | None = None, data: LabelledData | None = None,
-                  encoder: Ansatz | None = None, head: Ansatz | None = None,
-                  settings: PretrainSettings | None = None) -> Strategy:
-    """A strategy by name (``STRATEGIES``); ``scale`` is the small-angle or perturbation
-    standard deviation; the pretrained ones need ``data``, ``encoder`` and ``head``."""
-    if name == "uniform":
-        return uniform()
-    if name == "small_angle":
-        return small_angle(SMALL_ANGLE_SCALE if scale is None else scale)
-    if name == "identity_blocks":
-        return identity_blocks()
-    if name in ("pretrained", "pretrained_perturbed"):
-        if data is None or encoder is None or head is None:
-            raise ThermoseedError(f"strategy {name!r} needs labelled data (data=LabelledData)")
-        pert = 0.0 if name == "pretrained" else (PERTURBATION_SCALE if scale is None else scale)
-        if name == "pretrained_perturbed":
-            _positive(pert, "scale")
-        return pretrained(data, encoder, head, settings, pert)
-    raise ThermoseedError(f"unknown strategy {name!r}; choose one of {STRATEGIES}")
-
-
-def _positive(value, what: str) -> float:
-    v = float(value)
-    if not np.isfinite(v) or v <= 0:
-        raise ThermoseedError(f"{what} must be a finite number > 0, got {value!r}")
-    return v
 
 
 # ---------------------------------------------------------------------------- circuits
@@ -229,11 +96,11 @@ def _check_size(n_qubits: int, depth: int) -> tuple[int, int]:
     return integer_in(n_qubits, "n_qubits", 2), integer_in(depth, "depth", 1)
 
 
-def _resolve(strategy, unit: Ansatz, data, scale, settings) -> Strategy:
+def _resolve(strategy, unit: Ansatz, data, scale, settings, readout=(0,)) -> Strategy:
     if isinstance(strategy, Strategy):
         return strategy
     return make_strategy(str(strategy), scale=scale, data=data, encoder=unit, head=unit,
-                         settings=settings)
+                         settings=settings, readout=tuple(readout))
 
 
 def _classifier_value_and_grad(circuit, params: np.ndarray, data: LabelledData):
@@ -263,7 +130,7 @@ def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str =
     if data is not None:
         data.check(n)
     unit = probe_circuit(template, n, depth)
-    strat = _resolve(strategy, unit, data, scale, settings)
+    strat = _resolve(strategy, unit, data, scale, settings, readout)
     if cost == "classifier":
         circuit = DownstreamCircuit(unit, unit, tuple(readout))
         active, used = active_mask(circuit.blocks), "backprop/autograd"
@@ -319,7 +186,7 @@ def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
     data.check(n)
     unit = probe_circuit(template, n, depth)
     init_rng, _, batch_rng = _streams(seed)
-    strat = _resolve(strategy, unit, data, scale, settings)
+    strat = _resolve(strategy, unit, data, scale, settings, readout)
     circuit = DownstreamCircuit(unit, unit, tuple(readout))
     params = np.asarray(strat(circuit.blocks.shape, init_rng), dtype=float)
     run = train_classifier(

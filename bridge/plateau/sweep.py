@@ -38,13 +38,12 @@ from tqdm.auto import tqdm
 
 from thermoseed.bridge.plateau.probes import (
     COSTS,
-    STRATEGIES,
-    PretrainSettings,
     ProbeResult,
     TrainCurve,
     probe_seeds,
     train_curve,
 )
+from thermoseed.bridge.plateau.strategies import STRATEGIES, PretrainSettings
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_write_bytes
 from thermoseed.pretrain.labelled import LabelledData
@@ -73,7 +72,7 @@ class Job(NamedTuple):
     @property
     def needs_data(self) -> bool:
         return (self.cost == "classifier" or self.task == "training"
-                or self.strategy.startswith("pretrained"))
+                or self.strategy in ("pretrained", "pretrained_perturbed", "class_models"))
 
     def as_dict(self) -> dict:
         out = self._asdict()

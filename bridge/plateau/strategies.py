@@ -1,0 +1,203 @@
+"""Initialisation strategies for the plateau comparison: ``init(shape, rng) -> ndarray``.
+
+Every strategy draws the flat parameters ``[e, h]`` of the two-block probe circuit
+``V = U(h) U(e)^dag`` (``bridge.circuits.TwoBlock``) from a seeded generator:
+
+    ``uniform``          every angle uniform on ``[0, 2 pi)``
+    ``small_angle``      every angle ``N(0, scale^2)``
+    ``identity_blocks``  ``e`` uniform, ``h = e`` (``V = I``)
+    ``pretrained``       one Gibbs model on a bootstrap resample of the training states,
+                         compiled into the encoder (latent form); head = identity
+    ``pretrained_perturbed``  the same plus ``N(0, scale^2)`` on every angle
+    ``class_models``     one Gibbs model per class on a bootstrap resample (stratified),
+                         the single-shot rule between them (Helstrom) compiled into the whole
+                         circuit V with the classifier's readout wire(s)
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import NamedTuple
+
+import numpy as np
+
+from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.circuits import TwoBlock
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.readout_compile import readout_compile
+from thermoseed.bridge.warm_start import warm_start
+from thermoseed.pretrain import GibbsClassifier, VisibleGibbsModel, as_training_data, graph_terms
+from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.labelled import LabelledData
+
+STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretrained_perturbed",
+              "class_models")
+#: Default standard deviation of the small-angle strategy (radians).
+SMALL_ANGLE_SCALE = 0.1
+#: Default standard deviation of the perturbation added by ``pretrained_perturbed`` (radians).
+PERTURBATION_SCALE = 0.05
+
+Init = Callable[[tuple, np.random.Generator], np.ndarray]
+
+
+class Strategy(NamedTuple):
+    """A named initialisation: ``init(shape, rng) -> ndarray`` (deterministic given rng)."""
+
+    name: str
+    init: Init
+    options: dict
+
+    def __call__(self, shape, rng: np.random.Generator) -> np.ndarray:
+        return self.init(tuple(shape), rng)
+
+
+def uniform() -> Strategy:
+    """Every angle i.i.d. uniform on ``[0, 2 pi)``."""
+    return Strategy("uniform", lambda shape, rng: rng.uniform(0.0, 2 * np.pi, size=shape), {})
+
+
+def small_angle(scale: float = SMALL_ANGLE_SCALE) -> Strategy:
+    """Every angle i.i.d. ``N(0, scale^2)`` (Zhang et al., arXiv:2203.09376, who take
+    ``scale^2 ~ 1/depth``)."""
+    s = _positive(scale, "scale")
+    return Strategy("small_angle", lambda shape, rng: s * rng.standard_normal(shape),
+                    {"scale": s})
+
+
+def identity_blocks() -> Strategy:
+    """Grant et al. (arXiv:1903.05076): ``e`` uniform on ``[0, 2 pi)`` and ``h = e``, so
+    ``V = U(h) U(e)^dag = I`` at initialisation. Needs the flat parameters of a two-block
+    circuit whose blocks share one template (an even length ``2 k``)."""
+
+    def init(shape, rng):
+        if len(shape) != 1 or shape[0] % 2:
+            raise ThermoseedError(
+                f"identity_blocks needs the flat parameters [e, h] of a two-block circuit with "
+                f"one template for both blocks (even length), got shape {shape}"
+            )
+        e = rng.uniform(0.0, 2 * np.pi, size=shape[0] // 2)
+        return np.concatenate([e, e])
+
+    return Strategy("identity_blocks", init, {})
+
+
+class PretrainSettings(NamedTuple):
+    """Gibbs model and compile options of the pretrained strategies (all JSON-able)."""
+
+    graph: str = "line"
+    fields: str = "XZ"
+    couplings: tuple = ("ZZ",)
+    l2: float = 1e-3
+    restarts: int = 1
+    compile_iter: int = 300
+
+
+def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
+               settings: PretrainSettings | None = None,
+               perturbation: float = 0.0) -> Strategy:
+    """Warm start from an independent pre-training run per draw.
+
+    ``init((n_params,), rng)`` (flat ``[e, h]``): bootstrap-resample the training states
+    (B draws with replacement, from rng), fit ``VisibleGibbsModel`` on them,
+    ``compile_latent`` into the encoder (compile seed from rng), ``warm_start``
+    (head = zeros = identity), then add
+    ``N(0, perturbation^2)`` to every angle when ``perturbation > 0``.
+    """
+    settings = PretrainSettings() if settings is None else settings
+    n = encoder.n_wires
+    terms = graph_terms(n, settings.graph, fields=settings.fields,
+                        couplings=tuple(settings.couplings))
+    states = np.asarray(data.train_states)
+    blocks = TwoBlock(encoder, head)
+    pert = float(perturbation)
+    if not np.isfinite(pert) or pert < 0:
+        raise ThermoseedError(f"perturbation must be a finite number >= 0, got {perturbation!r}")
+
+    def init(shape, rng):
+        if tuple(shape) != blocks.shape:
+            raise ThermoseedError(
+                f"pretrained init is for the flat shape {blocks.shape}, got {shape}"
+            )
+        boot = rng.integers(0, len(states), size=len(states))
+        kind = "states" if states.ndim == 2 else "density"
+        td = as_training_data(states[boot], kind=kind)
+        model = VisibleGibbsModel(terms, l2=settings.l2).fit(td)
+        result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
+                                restarts=int(settings.restarts),
+                                max_iter=int(settings.compile_iter))
+        out = np.asarray(warm_start(result, head=head), dtype=float)
+        if pert > 0:
+            out = out + pert * rng.standard_normal(shape)
+        return out
+
+    name = "pretrained_perturbed" if pert > 0 else "pretrained"
+    return Strategy(name, init, {"perturbation": pert, **settings._asdict()})
+
+
+def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
+                 settings: PretrainSettings | None = None, readout: tuple = (0,)) -> Strategy:
+    """Label-aware warm start from an independent pre-training run per draw.
+
+    ``init((n_params,), rng)``: resample the training states with replacement within each
+    class (from rng), fit a ``GibbsClassifier`` (one Gibbs model per class on the settings'
+    term set, balanced priors), and maximise the readout's success probability
+    ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` over the whole two-block circuit ``V`` by
+    ``readout_compile`` (restarts and iterations from the settings, seed from rng).
+    """
+    settings = PretrainSettings() if settings is None else settings
+    n = encoder.n_wires
+    terms = graph_terms(n, settings.graph, fields=settings.fields,
+                        couplings=tuple(settings.couplings))
+    states, labels = np.asarray(data.train_states), np.asarray(data.train_labels)
+    blocks = TwoBlock(encoder, head)
+    circuit = blocks.as_ansatz()
+
+    def init(shape, rng):
+        if tuple(shape) != blocks.shape:
+            raise ThermoseedError(
+                f"class_models init is for the flat shape {blocks.shape}, got {shape}")
+        boot = np.concatenate([rng.choice(np.flatnonzero(labels == c),
+                                          size=int(np.sum(labels == c)))
+                               for c in np.unique(labels)])
+        clf = GibbsClassifier(terms, l2=settings.l2, rule="single-shot").fit(
+            states[boot], labels[boot])
+        result = readout_compile([m.state() for m in clf.models_], circuit, tuple(readout),
+                                 priors=clf.priors_, restarts=int(settings.restarts),
+                                 seed=int(rng.integers(2**31)),
+                                 max_iter=int(settings.compile_iter))
+        return np.asarray(result.params, dtype=float)
+
+    return Strategy("class_models", init, {"readout": list(readout), **settings._asdict()})
+
+
+def make_strategy(name: str, *, scale: float | None = None, data: LabelledData | None = None,
+                  encoder: Ansatz | None = None, head: Ansatz | None = None,
+                  settings: PretrainSettings | None = None, readout: tuple = (0,)) -> Strategy:
+    """A strategy by name (``STRATEGIES``); ``scale`` is the small-angle or perturbation
+    standard deviation; the pretrained ones need ``data``, ``encoder`` and ``head``;
+    ``readout`` is the classifier's readout wire(s) (``class_models``)."""
+    if name == "uniform":
+        return uniform()
+    if name == "small_angle":
+        return small_angle(SMALL_ANGLE_SCALE if scale is None else scale)
+    if name == "identity_blocks":
+        return identity_blocks()
+    if name in ("pretrained", "pretrained_perturbed"):
+        if data is None or encoder is None or head is None:
+            raise ThermoseedError(f"strategy {name!r} needs labelled data (data=LabelledData)")
+        pert = 0.0 if name == "pretrained" else (PERTURBATION_SCALE if scale is None else scale)
+        if name == "pretrained_perturbed":
+            _positive(pert, "scale")
+        return pretrained(data, encoder, head, settings, pert)
+    if name == "class_models":
+        if data is None or encoder is None or head is None:
+            raise ThermoseedError(f"strategy {name!r} needs labelled data (data=LabelledData)")
+        return class_models(data, encoder, head, settings, readout)
+    raise ThermoseedError(f"unknown strategy {name!r}; choose one of {STRATEGIES}")
+
+
+def _positive(value, what: str) -> float:
+    v = float(value)
+    if not np.isfinite(v) or v <= 0:
+        raise ThermoseedError(f"{what} must be a finite number > 0, got {value!r}")
+    return v
