@@ -19,6 +19,7 @@ in one pass; ``ansatz_columns`` and ``unitary`` are its column and full-matrix v
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
@@ -46,6 +47,9 @@ class Ansatz:
         shape: parameter shape.
         wires: the wires U acts on (a tuple).
         n_layers: layer count for built-ins (None for user functions).
+        tensor: optional fast form ``tensor(params, block) -> U(params) @ block``
+            (autograd-differentiable), used instead of recording the gates; composite
+            circuits built from built-ins (``TwoBlock.as_ansatz``) supply one.
     """
 
     name: str
@@ -53,6 +57,7 @@ class Ansatz:
     shape: tuple[int, ...]
     wires: tuple
     n_layers: int | None = None
+    tensor: Callable | None = None
 
     @property
     def n_wires(self) -> int:
@@ -94,7 +99,7 @@ class Ansatz:
         """The same ansatz placed on other wires."""
         if len(wires) != self.n_wires:
             raise ThermoseedError(f"need {self.n_wires} wires, got {len(wires)}")
-        return Ansatz(self.name, self.qfunc, self.shape, tuple(wires), self.n_layers)
+        return dataclasses.replace(self, wires=tuple(wires))
 
     def random_params(self, seed: int, scale: float = 2 * np.pi) -> np.ndarray:
         """Uniform parameters on ``[0, scale)`` from ``seed``."""
@@ -304,6 +309,8 @@ def apply_ansatz(ansatz: Ansatz, params, block) -> object:
     n = ansatz.n_wires
     if ansatz.builtin:
         return TEMPLATES[ansatz.name].apply(params, n, block)
+    if ansatz.tensor is not None:
+        return ansatz.tensor(params, block)
     ops = circuit_operations(ansatz, params)
     if ops is not None:
         return circuit_apply(ops, ansatz.wires, block)

@@ -84,7 +84,8 @@ class TwoBlock:
         """This circuit as one ``Ansatz`` over the flat parameters (for compiles that take an
         ansatz, e.g. a readout compile of the whole classifier circuit)."""
         return Ansatz(f"two-block {self.encoder.name}/{self.head.name}", self.__call__,
-                      self.shape, self.encoder.wires, None)
+                      self.shape, self.encoder.wires, None,
+                      lambda params, block: anp.dot(self.unitary(params), block))
 
     def __call__(self, params, wires: Sequence | None = None) -> None:
         """Queue ``U_enc(e)^dag`` then ``U_head(h)`` on ``wires`` (PennyLane gates)."""

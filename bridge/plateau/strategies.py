@@ -25,6 +25,7 @@ from thermoseed.bridge.ansatz import Ansatz
 from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.readout_compile import readout_compile
+from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.bridge.warm_start import warm_start
 from thermoseed.pretrain import GibbsClassifier, VisibleGibbsModel, as_training_data, graph_terms
 from thermoseed.pretrain.errors import ThermoseedError
@@ -36,6 +37,9 @@ STRATEGIES = ("uniform", "small_angle", "identity_blocks", "pretrained", "pretra
 SMALL_ANGLE_SCALE = 0.1
 #: Default standard deviation of the perturbation added by ``pretrained_perturbed`` (radians).
 PERTURBATION_SCALE = 0.05
+
+#: Success-probability gap to the attainable value at which a class-model compile stops.
+WARM_START_GAP = 1e-3
 
 Init = Callable[[tuple, np.random.Generator], np.ndarray]
 
@@ -141,8 +145,12 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
     ``init((n_params,), rng)``: resample the training states with replacement within each
     class (from rng), fit a ``GibbsClassifier`` (one Gibbs model per class on the settings'
     term set, balanced priors), and maximise the readout's success probability
-    ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` over the whole two-block circuit ``V`` by
-    ``readout_compile`` (restarts and iterations from the settings, seed from rng).
+    ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` by ``readout_compile`` (restarts and iterations
+    from the settings, seed from rng; stopped ``WARM_START_GAP`` short of the attainable
+    value, on the components of the class models holding all but ``WARM_START_GAP`` of
+    their weight). When the encoder is the identity at zero parameters (``"soft"``) the rule
+    goes into the head, ``V = U(h)``, with the encoder at zero (the mirror image of
+    ``pretrained``); otherwise into the whole circuit ``V = U(h) U(e)^dag``.
     """
     settings = PretrainSettings() if settings is None else settings
     n = encoder.n_wires
@@ -150,7 +158,8 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
                         couplings=tuple(settings.couplings))
     states, labels = np.asarray(data.train_states), np.asarray(data.train_labels)
     blocks = TwoBlock(encoder, head)
-    circuit = blocks.as_ansatz()
+    head_only = encoder.builtin and TEMPLATES[encoder.name].identity_at_zero
+    circuit = head if head_only else blocks.as_ansatz()
 
     def init(shape, rng):
         if tuple(shape) != blocks.shape:
@@ -164,8 +173,10 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
         result = readout_compile([m.state() for m in clf.models_], circuit, tuple(readout),
                                  priors=clf.priors_, restarts=int(settings.restarts),
                                  seed=int(rng.integers(2**31)),
-                                 max_iter=int(settings.compile_iter))
-        return np.asarray(result.params, dtype=float)
+                                 max_iter=int(settings.compile_iter), gap=WARM_START_GAP,
+                                 truncate=WARM_START_GAP)
+        params = np.asarray(result.params, dtype=float).ravel()
+        return np.concatenate([np.zeros(encoder.n_params), params]) if head_only else params
 
     return Strategy("class_models", init, {"readout": list(readout), **settings._asdict()})
 
