@@ -8,6 +8,7 @@ sharing an x-mask share one gather of ``A``. No d x d Pauli matrix is ever built
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from functools import cached_property
@@ -330,9 +331,11 @@ def graph_terms(
     shape: tuple[int, int] | None = None,
     edges=None,
     extra: Sequence[str] = (),
+    parity: bool = False,
 ) -> TermSet:
     """Single-qubit ``fields`` on every wire, letter-pair ``couplings`` on every edge, plus
-    ``extra`` labels. A pair ``"AB"`` on edge (i, j) puts A on wire i and B on wire j."""
+    ``extra`` labels, plus (``parity``) the global strings ``parity_labels(n)``. A pair
+    ``"AB"`` on edge (i, j) puts A on wire i and B on wire j."""
     n = int(n_qubits)
     labels = []
     for letter in fields:
@@ -344,7 +347,21 @@ def graph_terms(
         for i, j in graph_edges(graph, n, shape=shape, edges=edges):
             labels.append(_label_with({i: pair[0], j: pair[1]}, n))
     labels.extend(extra)
+    if parity:
+        labels.extend(label for label in parity_labels(n) if label not in labels)
     return TermSet(labels, n_qubits=n)
+
+
+def parity_labels(n_qubits: int) -> list[str]:
+    """Global n-body strings: ``Z...Z`` and every string over X and Y with an even number of
+    Y (``2^(n-1) + 1`` labels). They see coherences between ``|0...0>`` and ``|1...1>`` (a
+    GHZ phase), which no 1- or 2-body term does."""
+    n = int(n_qubits)
+    out = ["Z" * n]
+    for letters in itertools.product("XY", repeat=n):
+        if letters.count("Y") % 2 == 0:
+            out.append("".join(letters))
+    return out
 
 
 def _label_with(letters: dict[int, str], n: int) -> str:

@@ -34,7 +34,7 @@ from .classifier import GibbsClassifier, as_state_batch, batch_moments, check_la
 from .data import check_qubits
 from .errors import ThermoseedError
 from .labelled import stratified_split
-from .paulis import TermSet, graph_edges
+from .paulis import TermSet, graph_edges, parity_labels
 
 #: Default cap on the number of candidate strings.
 MAX_CANDIDATES = 2048
@@ -76,10 +76,7 @@ def _labels(n: int, max_weight: int, edges, parity: bool) -> Iterator[str]:
                 chars[q] = letter
             yield "".join(chars)
     if parity:
-        yield "Z" * n
-        for letters in itertools.product("XY", repeat=n):
-            if letters.count("Y") % 2 == 0:
-                yield "".join(letters)
+        yield from parity_labels(n)
 
 
 def candidate_terms(n_qubits: int, max_weight: int = 2, graph: str = "line", *,

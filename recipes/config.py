@@ -62,22 +62,30 @@ class ModelSettings:
     fields: str
     couplings: tuple[str, ...]
     l2: float
+    parity: bool = False
 
 
 @dataclass(frozen=True)
 class CompileSettings:
-    """``[compile]``: downstream template, layers per block (default: the qubit count)."""
+    """``[compile]``: downstream template, layers per block (None: the qubit count of each
+    size, ``depth_for``), compile restarts and iterations."""
 
     template: str
-    depth: int
+    depth: int | None
     restarts: int
     max_iter: int
+
+    def depth_for(self, n_qubits: int) -> int:
+        """Layers per block at ``n_qubits``."""
+        return n_qubits if self.depth is None else self.depth
 
 
 @dataclass(frozen=True)
 class TrainSettings:
-    """``[train]``: training curves from each strategy at the recipe's size."""
+    """``[train]``: training curves from each strategy at each of ``sizes`` (default: the
+    recipe's qubit count only); ``readout`` is the classifier's readout wire."""
 
+    sizes: tuple[int, ...]
     strategies: tuple[str, ...]
     seeds: int
     steps: int
@@ -133,14 +141,15 @@ class Recipe:
 
 _STRATEGIES = ["pretrained", "uniform", "small_angle", "identity_blocks"]
 _COMMON = {
-    "model": {"graph": "line", "fields": "XZ", "couplings": ["ZZ"], "l2": 1e-3},
+    "model": {"graph": "line", "fields": "XZ", "couplings": ["ZZ"], "l2": 1e-3,
+              "parity": False},
     "compile": {"template": "soft", "depth": None, "restarts": 1, "max_iter": 300},
 }
 DEFAULTS: dict[str, dict[str, Any]] = {
     "magnet-phase": {
         "data": {"qubits": 4, "samples": 48, "test_fraction": 0.25},
-        "train": {"strategies": _STRATEGIES, "seeds": 3, "steps": 40, "learning_rate": 0.05,
-                  "target_accuracy": 0.9},
+        "train": {"sizes": [], "strategies": _STRATEGIES, "seeds": 3, "steps": 40,
+                  "learning_rate": 0.05, "target_accuracy": 0.9},
         "plateau": {"sizes": [2, 3, 4, 5, 6], "strategies": _STRATEGIES, "seeds": 12,
                     "costs": ["local", "global"]},
     },
@@ -159,7 +168,7 @@ for _scenario in DEFAULTS.values():
 QUICK = {
     "data": {"samples": 24},
     "compile": {"max_iter": 100},
-    "train": {"seeds": 2, "steps": 15},
+    "train": {"sizes": [], "seeds": 2, "steps": 15},
     "plateau": {"sizes": [2, 3, 4], "seeds": 6},
     "eigensolver": {"seeds": 2, "steps": 60},
 }
@@ -225,8 +234,8 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
     data = sections["data"]
     n = check.integer("data", "qubits", data["qubits"], 2, MAX_QUBITS)
     comp = sections["compile"]
-    depth = n if comp["depth"] is None else check.integer("compile", "depth", comp["depth"], 1,
-                                                          MAX_DEPTH)
+    depth = None if comp["depth"] is None else check.integer("compile", "depth", comp["depth"],
+                                                             1, MAX_DEPTH)
     recipe = Recipe(
         name=name, title=str(raw.get("title", scenario)), scenario=scenario, seed=seed,
         data=DataSettings(**data),
@@ -260,6 +269,8 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
     return dataclasses.replace(
         recipe,
         train=TrainSettings(
+            sizes=tuple(sorted({n, *(check.integer("train", "sizes", s, 2, MAX_QUBITS)
+                                     for s in _list(train["sizes"], "train", "sizes", where))})),
             strategies=check.strategies("train", train["strategies"]),
             seeds=check.integer("train", "seeds", train["seeds"], 1, MAX_SEEDS),
             steps=check.integer("train", "steps", train["steps"], 1, MAX_STEPS),
@@ -275,6 +286,12 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
             costs=tuple(check.choice("plateau", "costs", c, COST_NAMES)
                         for c in check.nonempty("plateau", "costs", plateau["costs"]))),
     )
+
+
+def _list(value, section: str, key: str, where: str) -> list:
+    if not isinstance(value, list):
+        raise ThermoseedError(f"{where}: [{section}] {key} must be a list")
+    return value
 
 
 def _merge(given, values: dict, section: str, where: str) -> dict:
@@ -317,7 +334,8 @@ def _model_settings(model: dict, check: _Checker) -> ModelSettings:
                                   "two letters from X, Y, Z (e.g. \"ZZ\")")
     return ModelSettings(graph=check.choice("model", "graph", model["graph"], GRAPH_NAMES),
                          fields=fields, couplings=couplings,
-                         l2=check.number("model", "l2", model["l2"], low=0.0))
+                         l2=check.number("model", "l2", model["l2"], low=0.0),
+                         parity=model["parity"])
 
 
 class _Checker:

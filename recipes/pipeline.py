@@ -30,13 +30,20 @@ from thermoseed.bridge.plateau.report import write_report
 from thermoseed.bridge.plateau.strategies import PretrainSettings
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.bridge.warm_start import save_warm_start, warm_start
-from thermoseed.pretrain import VisibleGibbsModel, from_density_matrices, from_states, graph_terms
+from thermoseed.pretrain import (
+    GibbsClassifier,
+    VisibleGibbsModel,
+    from_density_matrices,
+    from_states,
+)
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
 from thermoseed.pretrain.labelled import LabelledData, save_labelled, split_labelled
 from thermoseed.recipes.config import Recipe
 
 RUN_FILE = "run.json"
+#: Strategies whose circuits are compiled for the classification task's readout.
+LABEL_AWARE = ("class_models",)
 
 
 def _versions() -> dict[str, str]:
@@ -110,6 +117,27 @@ def classification_data(scenario: str, n: int, samples: int, test_fraction: floa
     return split_labelled(states, batch.labels, test_fraction=test_fraction, seed=seed)
 
 
+def pretrain_settings(recipe: Recipe) -> PretrainSettings:
+    """The recipe's model and compile settings in the form sweeps carry to their workers."""
+    m, comp = recipe.model, recipe.compile
+    return PretrainSettings(m.graph, m.fields, m.couplings, m.l2, comp.restarts, comp.max_iter,
+                            m.parity)
+
+
+def class_rule_accuracies(data: LabelledData, settings: PretrainSettings) -> dict[str, float]:
+    """Held-out accuracy of the exact decision rules of one Gibbs model per class (fitted on
+    the training part with the recipe's term set and penalty, balanced priors), and the
+    single-shot bounds: Helstrom success between the fitted models and between the data's
+    own class mixtures."""
+    clf = GibbsClassifier(settings.terms(data.n_qubits), l2=settings.l2).fit(
+        data.train_states, data.train_labels)
+    many = clf.score(data.test_states, data.test_labels)
+    single = clf.set_params(rule="single-shot").score(data.test_states, data.test_labels)
+    return {"many_copy_accuracy": float(many), "single_shot_accuracy": float(single),
+            "model_success": float(clf.model_success_),
+            "data_success": float(clf.data_success_), "held_out": len(data.test_labels)}
+
+
 def _training_data(data: LabelledData):
     states = np.asarray(data.train_states)
     return from_states(states) if states.ndim == 2 else from_density_matrices(states)
@@ -126,7 +154,7 @@ def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: b
         model = VisibleGibbsModel(terms, l2=recipe.model.l2, seed=recipe.seed,
                                   progress=progress).fit(td)
         model.save(out / "model.npz")
-    unit = make_ansatz(comp.template, n, comp.depth)
+    unit = make_ansatz(comp.template, n, comp.depth_for(n))
     with _Stage(run, out, "compile"):
         result = compile_latent(model, unit, restarts=comp.restarts, max_iter=comp.max_iter,
                                 seed=recipe.seed, data=td.rho, progress=progress)
@@ -143,28 +171,36 @@ def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: b
 
 def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
                        workers: int | None):
-    data_cfg, model_cfg, comp = recipe.data, recipe.model, recipe.compile
+    data_cfg, comp = recipe.data, recipe.compile
     n, seed = data_cfg.qubits, recipe.seed
     plateau, train = recipe.plateau, recipe.train
-    sizes = sorted(set(plateau.sizes) | {n})
+    sizes = sorted(set(plateau.sizes) | set(train.sizes))
     with _Stage(run, out, "data"):
         data = {m: classification_data(recipe.scenario, m, data_cfg.samples,
                                        data_cfg.test_fraction, seed + m) for m in sizes}
         main = data[n]
         save_labelled(main, out / "data.npz")
     run["files"]["data"] = "data.npz"
-    terms = graph_terms(n, model_cfg.graph, fields=model_cfg.fields,
-                        couplings=model_cfg.couplings)
-    _pretrain_chain(recipe, out, run, terms, _training_data(main), progress)
-    settings = PretrainSettings(model_cfg.graph, model_cfg.fields, model_cfg.couplings,
-                                model_cfg.l2, comp.restarts, comp.max_iter)
+    settings = pretrain_settings(recipe)
+    _pretrain_chain(recipe, out, run, settings.terms(n), _training_data(main), progress)
+    with _Stage(run, out, "rules"):
+        run["class_rules"] = {str(m): class_rule_accuracies(data[m], settings)
+                              for m in train.sizes}
     seeds = range(seed, seed + train.seeds)
-    jobs = make_grid([n], train.strategies, seeds, task="training",
-                     depths=[comp.depth], template=comp.template, steps=train.steps,
-                     learning_rate=train.learning_rate, settings=settings)
-    jobs += make_grid(plateau.sizes, plateau.strategies,
-                      range(seed, seed + plateau.seeds), costs=plateau.costs,
-                      template=comp.template, settings=settings)
+    jobs = []
+    for m in train.sizes:
+        jobs += make_grid([m], train.strategies, seeds, task="training",
+                          depths=[comp.depth_for(m)], template=comp.template,
+                          steps=train.steps, learning_rate=train.learning_rate,
+                          settings=settings)
+    for m in plateau.sizes:
+        for strategy in plateau.strategies:
+            # label-aware starts are built for the task's readout: probed on its cost only
+            costs = [c for c in plateau.costs if strategy not in LABEL_AWARE or
+                     c == "classifier"]
+            jobs += make_grid([m], [strategy], range(seed, seed + plateau.seeds), costs=costs,
+                              depths=[comp.depth_for(m)], template=comp.template,
+                              settings=settings)
     with _Stage(run, out, "sweep"):
         result = run_sweep(jobs, out / "results.jsonl", data=data,
                            workers=workers, progress=progress)

@@ -214,7 +214,7 @@ def test_recipe_type_errors_name_the_key():
 def test_builtin_recipes_load():
     for name in ("magnet-phase", "probe-drift", "neighbour-xxz"):
         recipe = load_recipe(name, quick=True)
-        assert recipe.scenario == name and recipe.compile.depth >= 1
+        assert recipe.scenario == name and recipe.compile.depth_for(recipe.data.qubits) >= 1
 
 
 def test_help_mentions_an_example_for_every_command(capsys):
@@ -258,7 +258,7 @@ def test_qubit_override_goes_through_the_file_rules(tmp_path):
     for bad in (11, 1):
         with pytest.raises(ThermoseedError, match=r"qubits = \d+ must be an integer in 2..10"):
             load_recipe("magnet-phase", qubits=bad)
-    assert load_recipe("magnet-phase", qubits=6).compile.depth == 6  # default follows n
+    assert load_recipe("magnet-phase", qubits=6).compile.depth_for(6) == 6  # follows n
     path = tmp_path / "mine.toml"
     path.write_text('scenario = "magnet-phase"\n[compile]\ndepth = 2\n')
     assert load_recipe(path, qubits=6).compile.depth == 2

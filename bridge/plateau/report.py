@@ -4,7 +4,8 @@ Markdown report embedding them.
 ``write_report(records, folder)`` reads sweep records (``bridge.sweep``) and writes
 ``decay.png`` (log2 of the gradient variance against n, fitted lines per strategy, one panel
 per cost), ``curves.png`` (median training loss and held-out accuracy with quartile bands)
-when there are training records, and ``report.md``. Files are written atomically.
+when there are training records, ``sizes.png`` (step-0 accuracy and steps to target against
+n) when they cover several sizes, and ``report.md``. Files are written atomically.
 """
 
 from __future__ import annotations
@@ -36,6 +37,7 @@ STYLE = {
     "identity_blocks": ("identity blocks", "#3c8d2f"),
     "pretrained": ("pre-trained warm start", "#e08e0b"),
     "pretrained_perturbed": ("pre-trained + perturbation", "#6c4f9e"),
+    "class_models": ("class-model warm start", "#0b7a75"),
 }
 COST_TITLES = {"local": "local cost <Z_0>", "global": "global cost 1 - |<0|V|psi>|^2",
                "classifier": "classifier cross-entropy"}
@@ -141,7 +143,7 @@ def decay_table(by_statistic: Mapping[str, Mapping[GroupKey, DecayFit]],
 def stats_table(groups: Mapping[GroupKey, Mapping[int, list]]) -> str:
     """Markdown table of ``gradient_stats`` per (cost, strategy, n)."""
     head = ["cost", "strategy", "n", "depth", "seeds", "active params", "mean_k Var",
-            "max_k Var", "E |grad|^2"]
+            "max_k Var", "E norm(grad)^2"]
     lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     for key in sorted(groups):
         for n in sorted(groups[key]):
@@ -156,17 +158,50 @@ def stats_table(groups: Mapping[GroupKey, Mapping[int, list]]) -> str:
 
 
 def curve_table(summaries: Sequence[CurveSummary]) -> str:
-    """Markdown table of steps to the target held-out accuracy and the final medians."""
-    head = ["n", "strategy", "seeds", "target accuracy", "median steps to target",
-            "seeds reaching it", "final median loss", "final median accuracy"]
+    """Markdown table per (n, strategy): held-out accuracy at step 0, best along the curve and
+    last (medians over seeds), steps to the target and the final loss."""
+    head = ["n", "strategy", "seeds", "accuracy at step 0", "best accuracy", "last accuracy",
+            "median steps to target", "seeds reaching it", "final median loss"]
     lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     for s in sorted(summaries, key=lambda s: (s.n_qubits, s.strategy)):
         steps = "not reached" if s.steps_to_target is None else f"{s.steps_to_target:g}"
         lines.append("| " + " | ".join([
-            str(s.n_qubits), _style(s.strategy)[0], str(s.n_seeds), f"{s.target:g}", steps,
-            f"{s.reached}/{s.n_seeds}", f"{s.loss_q[1, -1]:.3f}",
-            f"{s.accuracy_q[1, -1]:.3f}"]) + " |")
+            str(s.n_qubits), _style(s.strategy)[0], str(s.n_seeds), f"{s.start_accuracy:.3f}",
+            f"{s.best_accuracy:.3f}", f"{s.last_accuracy:.3f}",
+            f"{steps} (target {s.target:g})", f"{s.reached}/{s.n_seeds}",
+            f"{s.loss_q[1, -1]:.3f}"]) + " |")
     return "\n".join(lines)
+
+
+def plot_sizes(summaries: Sequence[CurveSummary], path) -> Path:
+    """PNG against qubit count per strategy: median held-out accuracy at step 0 (left) and
+    median steps to the target accuracy (right; a hollow marker at the step budget when
+    fewer than half the seeds reach it)."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(9.0, 3.4), layout="constrained")
+    left, right = fig.subplots(1, 2)
+    for strategy in sorted({s.strategy for s in summaries}):
+        rows = sorted((s for s in summaries if s.strategy == strategy),
+                      key=lambda s: s.n_qubits)
+        label, colour = _style(strategy)
+        ns = [s.n_qubits for s in rows]
+        left.plot(ns, [s.start_accuracy for s in rows], "o-", color=colour, label=label)
+        budget = [s.loss_q.shape[1] - 1 for s in rows]
+        steps = [b if s.steps_to_target is None else s.steps_to_target
+                 for s, b in zip(rows, budget, strict=True)]
+        right.plot(ns, steps, "-", color=colour, label=label)
+        for n, y, s in zip(ns, steps, rows, strict=True):
+            right.plot([n], [y], "o", color=colour,
+                       fillstyle="none" if s.steps_to_target is None else "full")
+    left.set_ylabel("held-out accuracy at step 0 (median)")
+    left.set_ylim(-0.02, 1.02)
+    right.set_ylabel(f"steps to {summaries[0].target:g} held-out accuracy (median)")
+    for ax in (left, right):
+        ax.set_xlabel("qubits n")
+        ax.grid(alpha=0.3)
+    left.legend(fontsize=7)
+    return _save(fig, path)
 
 
 def write_report(records: Sequence[dict], folder, *, title: str = "Plateau comparison",
@@ -180,14 +215,16 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
     curves = train_curves(records)
     if not probes and not curves:
         raise ThermoseedError("the records hold neither gradient probes nor training curves")
-    parts = ([preamble] if preamble else []) + [f"# {title}", "", LIMITS, ""]
+    # one title and one limits statement per report: a preamble brings its own
+    parts = [preamble, f"## {title}", ""] if preamble else [f"# {title}", "", LIMITS, ""]
+    sub = "###" if preamble else "##"  # sections sit one level below the report's title
     if probes:
         by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed)
                    for s in ("mean_var", "max_var")}
         groups = group_probes(probes)
         seeds = {k: min(len(v) for v in by_n.values()) for k, by_n in groups.items()}
         methods = sorted({p.method for p in probes})
-        parts += ["## Gradient variance at initialisation", "",
+        parts += [f"{sub} Gradient variance at initialisation", "",
                   "Var over seeds of dC/dphi_k, averaged (mean_var) or maximised (max_var) "
                   "over the parameters that enter the circuit; slope of log2 Var against n "
                   f"by least squares, percentile bootstrap over seeds ({n_boot} resamples). "
@@ -202,9 +239,13 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
             groups[(c.strategy, c.n_qubits)].append(c)
         summaries = [summarize_curves(v, target=target) for _, v in sorted(groups.items())]
         plot_curves(summaries, folder / "curves.png")
-        parts += ["## Training curves", "",
-                  "![training loss and held-out accuracy per step](curves.png)", "",
-                  curve_table(summaries), ""]
+        parts += [f"{sub} Training curves", "",
+                  "![training loss and held-out accuracy per step](curves.png)", ""]
+        if len({s.n_qubits for s in summaries}) > 1:
+            plot_sizes(summaries, folder / "sizes.png")
+            parts += ["![step-0 accuracy and steps to target against qubit count](sizes.png)",
+                      ""]
+        parts += [curve_table(summaries), ""]
     path = folder / "report.md"
     atomic_write_bytes(path, "\n".join(parts).encode("utf-8"))
     return path

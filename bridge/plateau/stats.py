@@ -183,6 +183,8 @@ class CurveSummary(NamedTuple):
     ``loss_q`` and ``accuracy_q`` have shape (3, T + 1): 25th, 50th and 75th percentiles.
     ``steps_to_target`` is the median over seeds of the first step with held-out accuracy
     ``>= target`` (None if fewer than half the seeds reach it); ``reached`` counts them.
+    Held-out accuracy medians over seeds: ``start_accuracy`` at step 0, ``best_accuracy``
+    the best along each curve, ``last_accuracy`` after the last step.
     """
 
     strategy: str
@@ -193,6 +195,9 @@ class CurveSummary(NamedTuple):
     target: float
     steps_to_target: float | None
     reached: int
+    start_accuracy: float
+    best_accuracy: float
+    last_accuracy: float
 
 
 def first_step(values: np.ndarray, target: float) -> float:
@@ -216,4 +221,5 @@ def summarize_curves(curves: Sequence[TrainCurve], *, target: float = 0.9) -> Cu
     return CurveSummary(curves[0].strategy, curves[0].n_qubits, len(curves),
                         np.percentile(loss, q, axis=0), np.percentile(acc, q, axis=0),
                         float(target), med if np.isfinite(med) else None,
-                        int(np.isfinite(steps).sum()))
+                        int(np.isfinite(steps).sum()), float(np.median(acc[:, 0])),
+                        float(np.median(acc.max(axis=1))), float(np.median(acc[:, -1])))
