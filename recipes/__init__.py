@@ -8,3 +8,16 @@ writes its plain-words summary, ``cli`` is the ``thermoseed`` command line.
 Layer order, lowest first (a module imports only modules before it):
     scenarios -> config -> neighbour -> findings -> pipeline -> cli -> __main__
 """
+
+from thermoseed.pretrain.lazy import lazy_exports
+
+#: Public names by defining module, imported on first use (PEP 562): the command line's
+#: ``--help`` imports none of them.
+EXPORTS = {
+    "config": ("Recipe", "load_recipe", "validate_recipe"),
+    "pipeline": ("run_recipe",),
+    "scenarios.magnet_phase": ("magnet_phase_data",),
+    "scenarios.neighbour_xxz": ("thermal_state", "xxz_terms"),
+    "scenarios.probe_drift": ("probe_drift_data",),
+}
+__getattr__, __dir__, __all__ = lazy_exports(__name__, EXPORTS)

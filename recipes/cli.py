@@ -150,7 +150,7 @@ def _cmd_warm_start(args) -> int:
 
     from thermoseed.bridge.ansatz import make_ansatz
     from thermoseed.bridge.compile_record import load_compile
-    from thermoseed.bridge.warm_start import save_warm_start, warm_start
+    from thermoseed.bridge.warm_starts import save_warm_start, warm_start
 
     result = load_compile(args.compile)
     head = make_ansatz(args.head, result.n_visible, args.head_layers) if args.head else None

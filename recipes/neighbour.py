@@ -19,7 +19,7 @@ from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import CompileResult
 from thermoseed.bridge.eigensolver import run_eigensolver
 from thermoseed.bridge.plateau.strategies import PERTURBATION_SCALE, make_strategy
-from thermoseed.bridge.warm_start import identity_head
+from thermoseed.bridge.warm_starts import identity_head
 
 
 def energy_runs(result: CompileResult, hamiltonian: np.ndarray, target: float, strategies,

@@ -29,7 +29,7 @@ from thermoseed.bridge.compile_record import save_compile
 from thermoseed.bridge.plateau.report import write_report
 from thermoseed.bridge.plateau.strategies import PretrainSettings
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
-from thermoseed.bridge.warm_start import save_warm_start, warm_start
+from thermoseed.bridge.warm_starts import save_warm_start, warm_start
 from thermoseed.pretrain import (
     GibbsClassifier,
     VisibleGibbsModel,

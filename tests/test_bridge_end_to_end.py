@@ -32,7 +32,7 @@ import pytest
 from thermoseed.bridge.ansatz import make_ansatz
 from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
 from thermoseed.bridge.compile import compile_latent
-from thermoseed.bridge.warm_start import warm_start
+from thermoseed.bridge.warm_starts import warm_start
 from thermoseed.pretrain import VisibleGibbsModel, graph_terms
 from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data, train_test_split
 

@@ -322,6 +322,19 @@ def test_help_imports_no_numerical_library():
     assert out == "[]"
 
 
+@pytest.mark.parametrize("package", ["pretrain", "bridge", "recipes"])
+def test_exported_names_are_not_module_names(package):
+    """A submodule imported later becomes an attribute of its package and would shadow a
+    lazily exported name of the same spelling (e.g. a function warm_start in warm_start.py)."""
+    root = Path(__file__).resolve().parents[1] / package
+    modules = {p.stem for p in root.rglob("*.py")} | {p.name for p in root.rglob("*")
+                                                      if p.is_dir()}
+    import importlib
+
+    exported = set(importlib.import_module(f"thermoseed.{package}").__all__)
+    assert not exported & modules
+
+
 def test_package_roots_export_lazily():
     import thermoseed.pretrain as pretrain
 

@@ -227,7 +227,7 @@ def test_labelled_data_record_round_trip_and_plain_schema(tmp_path):
 
 def test_warm_start_record_says_its_layout(tmp_path):
     from thermoseed.bridge.ansatz import make_ansatz
-    from thermoseed.bridge.warm_start import load_warm_start, save_warm_start
+    from thermoseed.bridge.warm_starts import load_warm_start, save_warm_start
 
     enc, head = make_ansatz("strong", 2, 1), make_ansatz("soft", 2, 1)
     params = np.arange(enc.n_params + head.n_params, dtype=float)

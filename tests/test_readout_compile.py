@@ -19,7 +19,7 @@ from conftest import random_density, random_state
 from numerics import central_differences
 
 from thermoseed.bridge.ansatz import make_ansatz, user_ansatz
-from thermoseed.bridge.readout_compile import (
+from thermoseed.bridge.readout import (
     ReadoutCompileResult,
     helstrom_success,
     pgm_success,

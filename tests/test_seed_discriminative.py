@@ -17,7 +17,7 @@ from pennylane import numpy as pnp
 from thermoseed.bridge.ansatz import make_ansatz, unitary, user_ansatz
 from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
 from thermoseed.bridge.compile import compile_latent, compile_purified
-from thermoseed.bridge.warm_start import identity_head, warm_start
+from thermoseed.bridge.warm_starts import identity_head, warm_start
 from thermoseed.pretrain import VisibleGibbsModel, graph_terms
 from thermoseed.pretrain.errors import ThermoseedError
 

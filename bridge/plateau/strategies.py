@@ -25,9 +25,9 @@ import numpy as np
 from thermoseed.bridge.ansatz import Ansatz
 from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import compile_latent
-from thermoseed.bridge.readout_compile import readout_compile
+from thermoseed.bridge.readout import readout_compile
 from thermoseed.bridge.templates import TEMPLATES
-from thermoseed.bridge.warm_start import warm_start
+from thermoseed.bridge.warm_starts import warm_start
 from thermoseed.pretrain import GibbsClassifier, VisibleGibbsModel, as_training_data, graph_terms
 from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
 from thermoseed.pretrain.labelled import LabelledData

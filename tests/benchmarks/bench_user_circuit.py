@@ -56,7 +56,7 @@ import numpy as np
 import pennylane as qml
 
 from thermoseed.bridge.ansatz import columns, unitary, user_ansatz
-from thermoseed.bridge.readout_compile import readout_compile, readout_objective
+from thermoseed.bridge.readout import readout_compile, readout_objective
 
 LAYERS = 3
 TARGETS = {6: 10.0, 8: 60.0}
