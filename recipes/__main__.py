@@ -1,4 +1,4 @@
-"""``python -m bridge`` runs the thermoseed command line."""
+"""``python -m thermoseed.recipes`` runs the thermoseed command line."""
 
 import sys
 

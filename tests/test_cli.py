@@ -246,7 +246,7 @@ def test_readme_quickstart_main_job_runs(tmp_path):
     job = _quickstart_commands()[0].split("&&", 1)[1].strip()
     argv = shlex.split(job)
     assert argv[0] == "thermoseed"
-    proc = subprocess.run([sys.executable, "-m", "bridge", *argv[1:]], cwd=tmp_path,
+    proc = subprocess.run([sys.executable, "-m", "thermoseed.recipes", *argv[1:]], cwd=tmp_path,
                           capture_output=True, text=True, timeout=1800)
     assert proc.returncode == 0, proc.stderr[-2000:]
     report = tmp_path / "thermoseed-runs" / "magnet-phase" / "report.md"
@@ -342,3 +342,23 @@ def test_package_roots_export_lazily():
     assert pretrain.VisibleGibbsModel.__module__ == "thermoseed.pretrain.models"
     with pytest.raises(AttributeError, match="no attribute 'Nope'"):
         pretrain.Nope  # noqa: B018
+
+
+def _readme_python_blocks() -> list[str]:
+    text = (ROOT / "README.md").read_text()
+    return re.findall(r"```python\n(.*?)```", text, flags=re.S)
+
+
+@pytest.mark.slow
+def test_readme_quickstart_python_snippets_run(tmp_path):
+    """Every Python block of the README, run in order in one namespace from an empty folder
+    (the 'Before' line needs the names the later blocks define, so it runs last)."""
+    blocks = _readme_python_blocks()
+    assert len(blocks) >= 3
+    before, rest = blocks[0], blocks[1:]
+    code = "\n".join(rest + [before])
+    proc = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, capture_output=True,
+                          text=True, timeout=1800)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    accuracy = float(re.search(r"held-out accuracy at step 0: ([0-9.]+)", proc.stdout)[1])
+    assert accuracy > 0.5  # the labelled drop-in classifies before training (magnet-phase)
