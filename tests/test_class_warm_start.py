@@ -79,3 +79,24 @@ def test_class_warm_start_is_seeded_and_checks_its_inputs(task):
         warm_start(clf, ansatz=ansatz, readout=7)
     with pytest.raises(ThermoseedError, match="not fitted"):
         warm_start(GibbsClassifier(clf.terms), ansatz=ansatz)
+
+
+def test_many_copy_rule_as_an_observable_readout(task):
+    """The many-copy rule is the observable D = sum_j (theta_1j - theta_0j) P_j + offset:
+    measured with PennyLane's qml.expval on default.qubit (the reference), 1/(1 + e^<D>) is
+    the classifier's probability of class 1 for every held-out state."""
+    from thermoseed.pretrain import to_pennylane
+
+    data, clf = task
+    clf = GibbsClassifier(clf.terms, l2=1e-3).fit(data.train_states, data.train_labels)
+    d = clf.decision_observable()
+    observable = to_pennylane(d.coeffs, d.terms)
+
+    @qml.qnode(qml.device("default.qubit", wires=N))
+    def measure(state):
+        qml.StatePrep(state, wires=range(N))
+        return qml.expval(observable)
+
+    expected = clf.predict_proba(data.test_states)[:, 1]
+    got = np.array([1 / (1 + np.exp(float(measure(s)) + d.offset)) for s in data.test_states])
+    np.testing.assert_allclose(got, expected, atol=1e-9)
