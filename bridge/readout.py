@@ -43,10 +43,16 @@ import scipy.optimize
 from tqdm.auto import tqdm
 
 from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
+from thermoseed.pretrain.classifier import (
+    TRACE_HINT,
+    helstrom_success,
+    pretty_good_measurement,
+    prior_vector,
+    success_probability,
+)
+from thermoseed.pretrain.data import check_density_matrix
 from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
 
-#: Tolerance on Hermiticity, trace and positivity of an input density matrix.
-STATE_ATOL = 1e-8
 #: Eigen-directions of a state (or of Gamma) with |weight| at or below this are dropped: the
 #: objective moves by at most d times this.
 RANK_CUT = 1e-13
@@ -81,6 +87,7 @@ class ReadoutCompileResult(NamedTuple):
 
 
 def _as_states(states, d: int) -> list[np.ndarray]:
+    """Class states as checked d x d density matrices (``check_density_matrix``)."""
     if isinstance(states, np.ndarray) and states.ndim == 3:
         states = list(states)
     states = [s.state() if callable(getattr(s, "state", None)) else s for s in states]
@@ -93,35 +100,14 @@ def _as_states(states, d: int) -> list[np.ndarray]:
             raise ThermoseedError(
                 f"class {c}: density matrix of shape {s.shape}, but the ansatz acts on "
                 f"{int(np.log2(d))} wires: expected ({d}, {d})")
-        if not np.all(np.isfinite(s)):
-            raise ThermoseedError(f"class {c}: density matrix contains NaN or inf")
-        if np.abs(s - s.conj().T).max() > STATE_ATOL:
-            raise ThermoseedError(
-                f"class {c}: density matrix is not Hermitian (max |sigma - sigma^dag| = "
-                f"{np.abs(s - s.conj().T).max():.2e})")
-        s = 0.5 * (s + s.conj().T)
-        trace = float(np.trace(s).real)
-        if abs(trace - 1.0) > STATE_ATOL:
-            raise ThermoseedError(f"class {c}: density matrix has trace {trace:.6g}; divide "
-                                  "it by its trace")
-        low = float(np.linalg.eigvalsh(s)[0])
-        if low < -STATE_ATOL:
-            raise ThermoseedError(f"class {c}: density matrix has a negative eigenvalue "
-                                  f"{low:.2e}; it is not positive semidefinite")
-        out.append(s)
+        out.append(check_density_matrix(s, what=f"class {c} density matrix",
+                                        trace_hint=TRACE_HINT))
     return out
 
 
 def _as_priors(priors, n_classes: int) -> np.ndarray:
-    if priors is None:
-        return np.full(n_classes, 1.0 / n_classes)
-    p = np.asarray(priors, dtype=float)
-    if p.shape != (n_classes,):
-        raise ThermoseedError(f"priors must have one entry per class ({n_classes}), got shape "
-                              f"{p.shape}")
-    if not np.all(np.isfinite(p)) or np.any(p < 0) or abs(p.sum() - 1.0) > 1e-9:
-        raise ThermoseedError(f"priors must be non-negative and sum to 1, got {p.tolist()}")
-    return p
+    return np.full(n_classes, 1.0 / n_classes) if priors is None else \
+        prior_vector(priors, n_classes)
 
 
 def _as_readout(readout, ansatz: Ansatz, n_classes: int) -> tuple:
@@ -158,21 +144,9 @@ def _patterns(ansatz: Ansatz, readout: tuple) -> np.ndarray:
 # ---------------------------------------------------------------------------- bounds
 
 
-def helstrom_success(sigma0: np.ndarray, sigma1: np.ndarray, p0: float = 0.5) -> float:
-    """``1/2 (1 + ||p_1 sigma_1 - p_0 sigma_0||_1)``, the best success of any measurement
-    telling sigma_0 from sigma_1 (Helstrom 1976)."""
-    gamma = (1.0 - p0) * np.asarray(sigma1) - p0 * np.asarray(sigma0)
-    return float(0.5 * (1.0 + np.abs(np.linalg.eigvalsh(0.5 * (gamma + gamma.conj().T))).sum()))
-
-
 def pgm_success(states: Sequence[np.ndarray], priors) -> float:
-    """Pretty-good-measurement success ``sum_c Tr((p_c sigma_c rho^{-1/2})^2)``,
-    ``rho = sum_c p_c sigma_c``, inverse on rho's support (Hausladen & Wootters 1994)."""
-    weighted = [p * np.asarray(s) for p, s in zip(priors, states, strict=True)]
-    vals, vecs = np.linalg.eigh(sum(weighted))
-    keep = vals > RANK_CUT * max(1.0, vals.max())
-    root = (vecs[:, keep] / np.sqrt(vals[keep])) @ vecs[:, keep].conj().T
-    return float(sum(np.trace(w @ root @ w @ root).real for w in weighted))
+    """Success probability of the pretty-good measurement (Hausladen & Wootters 1994)."""
+    return success_probability(pretty_good_measurement(states, priors), states, priors)
 
 
 def readout_bounds(states, priors, n_readout: int = 1) -> tuple[float, float, float | None]:

@@ -67,6 +67,8 @@ ZERO_RTOL = 1e-12
 #: Largest |sum(priors) - 1| accepted for explicit priors.
 PRIOR_ATOL = 1e-8
 CLASSIFIER_KIND = "gibbs-classifier"
+#: Wrong-trace advice where no renormalize option exists.
+TRACE_HINT = "divide it by its trace first"
 
 
 # ---------------------------------------------------------------- inputs
@@ -181,11 +183,8 @@ def _state_stack(states, what: str) -> np.ndarray:
     if arr.ndim != 3 or arr.shape[0] < 2:
         raise ThermoseedError(f"{what}s must be a (C, d, d) stack of C >= 2 density matrices, "
                               f"got shape {arr.shape}")
-    try:
-        return np.stack([check_density_matrix(m, what=f"{what} {c}") for c, m in enumerate(arr)])
-    except ThermoseedError as err:  # no renormalize option here: name the fix directly
-        raise ThermoseedError(str(err).replace("pass renormalize=True to divide by the trace",
-                                               "divide it by its trace first")) from err
+    return np.stack([check_density_matrix(m, what=f"{what} {c}", trace_hint=TRACE_HINT)
+                     for c, m in enumerate(arr)])
 
 
 def _check_p0(p0: float) -> float:

@@ -109,8 +109,15 @@ def _check_labels(labels, count: int) -> np.ndarray | None:
     return lab.astype(np.int64)
 
 
-def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density matrix"):
-    """Validate a density matrix: square, 2^n, finite, Hermitian, PSD, unit trace."""
+#: The advice for a wrong trace where the caller offers ``renormalize`` (the default).
+RENORMALIZE_HINT = "pass renormalize=True to divide by the trace"
+
+
+def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density matrix",
+                         trace_hint: str = RENORMALIZE_HINT):
+    """Validate a density matrix: square, 2^n, finite, Hermitian, PSD, unit trace.
+    ``trace_hint`` is the advice given for a wrong trace (callers without a renormalize
+    option pass their own)."""
     a = _finite(rho, what)
     if a.ndim != 2 or a.shape[0] != a.shape[1]:
         raise ThermoseedError(f"{what} must be a square matrix, got shape {a.shape}")
@@ -132,7 +139,7 @@ def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density
     if abs(tr - 1.0) > TRACE_ATOL:
         if not renormalize or tr <= 0:
             raise ThermoseedError(
-                f"{what} has trace {tr:.12g}, not 1; pass renormalize=True to divide by the trace"
+                f"{what} has trace {tr:.12g}, not 1; {trace_hint}"
             )
         a = a / tr
     return a

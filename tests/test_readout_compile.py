@@ -233,12 +233,12 @@ def test_input_errors_name_the_problem():
     good = [random_density(4, rng) for _ in range(2)]
     cases = [
         ([random_density(8, rng), good[1]], {}, r"class 0: .*\(8, 8\).*expected \(4, 4\)"),
-        ([good[0], good[1] + np.triu(np.ones((4, 4)), 1)], {}, "class 1: .*not Hermitian"),
-        ([2 * good[0], good[1]], {}, "class 0: .*trace 2"),
-        ([good[0], np.diag([1.5, -0.5, 0, 0])], {}, "class 1: .*negative eigenvalue"),
+        ([good[0], good[1] + np.triu(np.ones((4, 4)), 1)], {}, "class 1 .*not Hermitian"),
+        ([2 * good[0], good[1]], {}, "class 0 .*trace 2.*divide it by its trace first"),
+        ([good[0], np.diag([1.5, -0.5, 0, 0])], {}, "class 1 .*negative eigenvalue"),
         ([good[0]], {}, "at least 2 class states"),
-        (good, {"priors": [0.2, 0.2]}, "sum to 1"),
-        (good, {"priors": [1.0]}, "one entry per class"),
+        (good, {"priors": [0.2, 0.2]}, "sum to 0.4, not 1"),
+        (good, {"priors": [1.0]}, "one per class"),
         (good, {"readout": 5}, r"readout wires \(5,\) must be"),
         (good + [good[0]] * 3, {"readout": [0]}, "5 classes need at least 3 readout wires"),
     ]
