@@ -13,6 +13,8 @@ import numpy as np
 import pytest
 
 from thermoseed.bridge.plateau.sweep import (
+    DuplicateRecordWarning,
+    job_key,
     make_grid,
     probe_results,
     read_records,
@@ -109,7 +111,10 @@ def test_resume_after_interrupt_runs_each_job_once(tmp_path, data, reference):
     keys = [rec["key"] for rec in read_records(path)]
     assert len(keys) == len(set(keys))
     assert results_by_key(path) == reference
-    assert [r["key"] for r in again.records] == list(reference)  # records in job order
+    ids = {n: d.fingerprint() for n, d in data.items()}
+    in_job_order = [job_key(j, ids.get(j.n_qubits) if j.needs_data else None)
+                    for j in small_grid()]
+    assert [r["key"] for r in again.records] == in_job_order  # records in job order
 
 
 def test_torn_last_line_is_dropped_and_rerun(tmp_path, data, reference):
@@ -141,7 +146,8 @@ def test_bad_inputs(tmp_path):
     with pytest.raises(ThermoseedError, match="unknown strategy"):
         make_grid([2], ["sideways"], [0])
     bad = tmp_path / "bad.jsonl"
-    bad.write_text('{"key": 1, "result": 2}\nnot json\n{"key": 3, "result": 4}\n')
+    bad.write_text('{"key": 1, "job": {}, "result": 2}\nnot json\n'
+                   '{"key": 3, "job": {}, "result": 4}\n')
     with pytest.raises(ThermoseedError, match="line 2"):
         read_records(bad)
 
@@ -156,3 +162,31 @@ def test_labelled_data_is_checked_like_fit_data(damage, message):
     bad = LabelledData(damage(np.asarray(data.train_states)), *data[1:])
     with pytest.raises(ThermoseedError, match=message):
         bad.check(2)
+
+
+def test_second_writer_refuses_while_a_sweep_holds_the_file(tmp_path):
+    """Two sweeps into one results file at once: the second stops at once with one line
+    (before, both appended every job: 350 lines for 180 keys)."""
+    import fcntl
+
+    path = tmp_path / "shared.jsonl"
+    with open(f"{path}.lock", "a") as other:  # a running sweep holds this lock
+        fcntl.flock(other.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        with pytest.raises(ThermoseedError, match="another sweep is writing"):
+            run_sweep(make_grid([2], ["uniform"], [0]), path, workers=1, progress=False)
+    assert not path.exists() or path.read_text() == ""
+    out = run_sweep(make_grid([2], ["uniform"], [0]), path, workers=1, progress=False)
+    assert out.ran == 1  # the lock is released when the holder is gone
+
+
+def test_duplicates_are_dropped_and_order_does_not_matter(tmp_path):
+    """Duplicate keys count once (with a warning) and the records come back sorted by key,
+    so line order (worker completion order) cannot change a statistic."""
+    path = tmp_path / "dup.jsonl"
+    run_sweep(make_grid([2, 3], ["uniform"], [0, 1]), path, workers=1, progress=False)
+    lines = path.read_text().splitlines()
+    (tmp_path / "shuffled.jsonl").write_text("\n".join(lines[::-1] + lines[:2]) + "\n")
+    with pytest.warns(DuplicateRecordWarning, match="2 duplicate"):
+        shuffled = read_records(tmp_path / "shuffled.jsonl")
+    assert [r["key"] for r in shuffled] == [r["key"] for r in read_records(path)]
+    assert len(shuffled) == 4

@@ -26,7 +26,7 @@ from thermoseed.bridge.plateau.stats import (
     group_probes,
     summarize_curves,
 )
-from thermoseed.bridge.plateau.sweep import probe_results, train_curves
+from thermoseed.bridge.plateau.sweep import canonical_records, probe_results, train_curves
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_write_bytes
 
@@ -211,6 +211,7 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
     report path. ``target``: held-out accuracy for steps-to-target; ``n_boot``/``seed``:
     the bootstrap of the decay-rate intervals; ``preamble``: Markdown placed first."""
     folder = Path(folder)
+    records = canonical_records(records)  # same records, same order: same report
     probes = probe_results(records)
     curves = train_curves(records)
     if not probes and not curves:

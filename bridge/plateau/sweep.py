@@ -26,6 +26,7 @@ import json
 import os
 import sys
 import time
+import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from itertools import groupby
@@ -49,6 +50,8 @@ from thermoseed.pretrain.files import atomic_write_bytes
 from thermoseed.pretrain.labelled import LabelledData
 
 TASKS = ("gradient", "training")
+#: The results file inside a run folder.
+RESULTS_FILE = "results.jsonl"
 #: Seeds batched into one unit of work by default.
 CHUNK = 8
 
@@ -164,18 +167,45 @@ def _batches(jobs: Sequence[Job], chunk: int) -> list[list[Job]]:
 # ---------------------------------------------------------------------------- records
 
 
+class DuplicateRecordWarning(UserWarning):
+    """A sweep file holds the same job more than once (e.g. two writers at once)."""
+
+
+def canonical_records(records: Sequence[dict]) -> list[dict]:
+    """Records sorted by job key, each key once (the first kept, a warning says how many
+    were dropped): every statistic then sees the same records in the same order, whatever
+    order the workers finished in."""
+    seen: dict[str, dict] = {}
+    for rec in records:
+        seen.setdefault(rec["key"], rec)
+    dropped = len(records) - len(seen)
+    if dropped:
+        warnings.warn(f"{dropped} duplicate sweep record(s) dropped (the same job written "
+                      "more than once); each job counts once", DuplicateRecordWarning,
+                      stacklevel=2)
+    return [seen[key] for key in sorted(seen)]
+
+
 def read_records(path) -> list[dict]:
-    """Records of a sweep file. A torn last line (no newline: the sweep was killed while
-    writing) is dropped and the file rewritten atomically without it."""
+    """Records of a sweep file (``canonical_records``: sorted by key, duplicates dropped).
+    A torn last line (no newline: the sweep was killed while writing) is dropped and the
+    file rewritten atomically without it."""
     p = Path(path)
+    if p.is_dir():
+        p = p / RESULTS_FILE
     if not p.exists():
         return []
     raw = p.read_bytes()
     if raw and not raw.endswith(b"\n"):
         raw = raw[: raw.rfind(b"\n") + 1]
         atomic_write_bytes(p, raw)
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise ThermoseedError(f"sweep file {str(p)!r} is not UTF-8 text ({err}); is it a "
+                              "results .jsonl file?") from err
     records = []
-    for lineno, line in enumerate(raw.decode("utf-8").splitlines(), start=1):
+    for lineno, line in enumerate(text.splitlines(), start=1):
         if not line.strip():
             continue
         try:
@@ -185,13 +215,15 @@ def read_records(path) -> list[dict]:
                 f"sweep file {str(p)!r} line {lineno} is not JSON ({err}); move the file "
                 "aside or pass a new path"
             ) from err
-        if not isinstance(rec, dict) or "key" not in rec or "result" not in rec:
+        missing = [k for k in ("key", "job", "result") if not isinstance(rec, dict)
+                   or k not in rec]
+        if missing:
             raise ThermoseedError(
-                f"sweep file {str(p)!r} line {lineno} is not a sweep record (no key/result); "
-                "move the file aside or pass a new path"
+                f"sweep file {str(p)!r} line {lineno} is not a sweep record (missing "
+                f"{missing}); move the file aside or pass a new path"
             )
         records.append(rec)
-    return records
+    return canonical_records(records)
 
 
 def _append(handle, record: dict) -> None:
@@ -243,6 +275,7 @@ def run_sweep(jobs: Sequence[Job], path, *, data: Mapping[int, LabelledData] | N
         _data_for(job, data)
     batches = _batches(pending, chunk)
     Path(path).parent.mkdir(parents=True, exist_ok=True)
+    lock = _lock(path)
     bar = tqdm(total=len(pending), disable=not progress, file=sys.stderr, desc="sweep",
                unit="job")
     ran = 0
@@ -261,8 +294,27 @@ def run_sweep(jobs: Sequence[Job], path, *, data: Mapping[int, LabelledData] | N
                     on_record(record)
     finally:
         bar.close()
+        lock.close()  # closing the descriptor releases the lock
     records = [done[key] for key in keyed]
     return SweepResult(records, ran, len(keyed) - len(pending))
+
+
+def _lock(path):
+    """An exclusive, non-blocking lock on ``<path>.lock`` for the whole sweep: a second
+    sweep into the same results file refuses at once instead of writing every job twice."""
+    handle = open(f"{path}.lock", "a")  # noqa: SIM115 - held for the sweep's lifetime
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX: no advisory locks, no check
+        return handle
+    try:
+        fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError as err:
+        handle.close()
+        raise ThermoseedError(
+            f"another sweep is writing {str(path)!r} right now; wait for it to finish, or "
+            "give this one another results file") from err
+    return handle
 
 
 def _timed(jobs: Sequence[Job], data: LabelledData | None) -> list[tuple[Job, dict, float]]:
