@@ -274,13 +274,29 @@ def _optimise(objective, inits, *, max_iter, tol, progress, desc):
         value, grad = value_and_grad(x)
         return float(value), np.asarray(grad, dtype=float)
 
+    starts = list(inits)
     best = None
-    for x0 in tqdm(list(inits), desc=desc, disable=not progress, leave=False):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", ConvergenceWarning)
-            result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter)
-        if best is None or result.loss < best.loss:
-            best = result
+    with tqdm(total=len(starts) * max_iter, desc=desc, disable=not progress,
+              leave=False) as bar:
+
+        def tick(step, x, loss, grad):
+            bar.update(1)
+            bar.set_postfix(objective=f"{loss:.4g}", refresh=False)
+
+        for x0 in starts:
+            with warnings.catch_warnings():
+                # one restart that stops short is normal; the best one is judged below
+                warnings.simplefilter("ignore", ConvergenceWarning)
+                result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter, callback=tick)
+            bar.update(max_iter - result.n_iter)  # an early stop skips the rest of its share
+            if best is None or result.loss < best.loss:
+                best = result
+    if not best.converged:
+        warnings.warn(
+            f"the compile's best of {len(starts)} restart(s) stopped after {best.n_iter} "
+            f"iterations with |grad| = {best.grad_norm:.2g} > tol = {tol:g}; raise max_iter "
+            "or restarts (the report's objective against its floor says how far off it is)",
+            ConvergenceWarning, stacklevel=3)
     return best
 
 

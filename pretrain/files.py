@@ -31,12 +31,22 @@ CORRUPT_FILE_ERRORS = (
 )
 
 
+def _umask() -> int:
+    """The process umask (read by setting and restoring it; there is no getter)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 def atomic_write_bytes(path, payload: bytes) -> Path:
-    """Write ``payload`` to ``path`` via a temp file in the same folder and ``os.replace``."""
+    """Write ``payload`` to ``path`` via a temp file in the same folder and ``os.replace``.
+    The file gets the permissions a plain ``open`` would give it (0666 minus the umask), not
+    the temp file's private 0600: collaborators on a shared machine can read the results."""
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     try:
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as handle:
             handle.write(payload)
             handle.flush()
@@ -116,6 +126,23 @@ def read_record(path, kind: str | None = None) -> tuple[dict[str, Any], dict[str
             f"{str(path)!r} holds a {header.get('kind')!r} record, not a {kind!r} one"
         )
     return header, arrays
+
+
+def json_text(payload, indent: int | None = None) -> str:
+    """JSON that every parser reads: non-finite floats written as the strings "inf", "-inf",
+    "nan" (plain ``json.dumps`` writes ``Infinity``/``NaN``, which is not JSON)."""
+
+    def clean(value):
+        if isinstance(value, (float, np.floating)) and not np.isfinite(value):
+            return str(float(value))
+        if isinstance(value, dict):
+            return {k: clean(v) for k, v in value.items()}
+        if isinstance(value, (list, tuple)):
+            return [clean(v) for v in value]
+        return json_scalar(value)
+
+    return json.dumps(clean(payload), default=str, indent=indent, sort_keys=indent is not None,
+                      allow_nan=False)
 
 
 def json_scalar(value):

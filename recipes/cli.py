@@ -8,7 +8,6 @@ one line on stderr and exit 1; argparse keeps exit 2 for usage errors; ``--debug
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 from pathlib import Path
 
@@ -69,18 +68,10 @@ def _word_list(text: str) -> list[str]:
 
 
 def _json(payload, indent: int | None = None) -> str:
-    """JSON with non-finite floats written as strings ("inf"), so any parser reads it."""
+    """``json_text`` (imported late: ``--help`` stays free of numpy)."""
+    from thermoseed.pretrain.files import json_text
 
-    def clean(value):
-        if isinstance(value, float) and value != value or value in (float("inf"), float("-inf")):
-            return str(value)
-        if isinstance(value, dict):
-            return {k: clean(v) for k, v in value.items()}
-        if isinstance(value, (list, tuple)):
-            return [clean(v) for v in value]
-        return value
-
-    return json.dumps(clean(payload), default=str, indent=indent)
+    return json_text(payload, indent)
 
 
 def _add_common(parser: argparse.ArgumentParser) -> None:

@@ -37,7 +37,7 @@ from thermoseed.pretrain import (
     from_states,
 )
 from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes
+from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes, json_text
 from thermoseed.pretrain.labelled import LabelledData, save_labelled, split_labelled
 from thermoseed.recipes.config import Recipe
 
@@ -57,13 +57,27 @@ def _versions() -> dict[str, str]:
 
 
 def _write_json(path: Path, payload: dict) -> None:
-    atomic_write_bytes(path, json.dumps(payload, indent=2, sort_keys=True, default=str).encode())
+    atomic_write_bytes(path, json_text(payload, indent=2).encode())
 
 
 def _claim_folder(out: Path, recipe: Recipe) -> dict:
-    """Create or reopen a run folder; refuse one that holds a different recipe's run."""
-    out.mkdir(parents=True, exist_ok=True)
+    """Create or reopen a run folder; refuse one that holds a different recipe's run or
+    anything that is not a thermoseed run (a run never writes over a user's own files), and
+    an unwritable place, before any work."""
     run_path = out / RUN_FILE
+    if out.is_dir() and any(out.iterdir()) and not run_path.exists():
+        foreign = sorted(p.name for p in out.iterdir())[:4]
+        raise ThermoseedError(
+            f"run folder {str(out)!r} already holds {foreign} but no {RUN_FILE}: a run only "
+            "writes into an empty folder or its own earlier run; pass a new --out")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe = out / f".{RUN_FILE}.write-check"
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as err:
+        raise ThermoseedError(f"cannot write into {str(out)!r} ({err.strerror}); pass an "
+                              "--out you can write to") from err
     fp = recipe.fingerprint()
     if run_path.exists():
         try:
@@ -71,6 +85,9 @@ def _claim_folder(out: Path, recipe: Recipe) -> dict:
         except (json.JSONDecodeError, UnicodeDecodeError) as err:
             raise ThermoseedError(
                 f"{run_path} is corrupt ({err}); delete it to start over") from err
+        if not isinstance(previous, dict):
+            raise ThermoseedError(f"{run_path} is not a thermoseed run record (not a JSON "
+                                  "object); delete it to start over")
         if previous.get("fingerprint") != fp:
             raise ThermoseedError(
                 f"run folder {str(out)!r} holds a run of different settings; pass another "

@@ -362,3 +362,35 @@ def test_readme_quickstart_python_snippets_run(tmp_path):
     assert proc.returncode == 0, proc.stderr[-3000:]
     accuracy = float(re.search(r"held-out accuracy at step 0: ([0-9.]+)", proc.stdout)[1])
     assert accuracy > 0.5  # the labelled drop-in classifies before training (magnet-phase)
+
+
+def test_run_never_writes_over_foreign_files_or_into_unwritable_places(tmp_path, capsys):
+    """`run --out .` in a folder with the user's own data.npz refused before any work (it
+    used to overwrite it); an unwritable --out fails before any work too."""
+    mine = tmp_path / "data.npz"
+    mine.write_bytes(b"the user's own file")
+    assert main(["run", "magnet-phase", "--quick", "--out", str(tmp_path), "--quiet"]) == 1
+    assert "no run.json" in capsys.readouterr().err
+    assert mine.read_bytes() == b"the user's own file"
+    blocked = tmp_path / "file-not-folder"
+    blocked.write_text("x")
+    assert main(["run", "magnet-phase", "--quick", "--out", str(blocked / "sub"),
+                 "--quiet"]) == 1
+    assert "pass an --out you can write to" in capsys.readouterr().err
+
+
+def test_written_files_follow_the_umask_and_json_is_strict(tmp_path):
+    """Atomic writes used to leave every output at mode 0600; run.json used to hold
+    Infinity (not JSON)."""
+    import os
+
+    from thermoseed.pretrain.files import atomic_write_bytes, json_text
+
+    old = os.umask(0o022)
+    try:
+        path = atomic_write_bytes(tmp_path / "out.bin", b"1")
+    finally:
+        os.umask(old)
+    assert path.stat().st_mode & 0o777 == 0o644
+    text = json_text({"a": float("inf"), "b": [float("nan"), 1.5], "c": np.float64(2.0)})
+    assert json.loads(text) == {"a": "inf", "b": ["nan", 1.5], "c": 2.0}

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Callable
+from contextlib import contextmanager
 from typing import NamedTuple
 
 import numpy as np
@@ -132,9 +133,10 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
         kind = "states" if states.ndim == 2 else "density"
         td = as_training_data(states[boot], kind=kind)
         model = VisibleGibbsModel(terms, l2=settings.l2).fit(td)
-        result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
-                                restarts=int(settings.restarts),
-                                max_iter=int(settings.compile_iter))
+        with _bounded_compile():
+            result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
+                                    restarts=int(settings.restarts),
+                                    max_iter=int(settings.compile_iter))
         out = np.asarray(warm_start(result, head=head), dtype=float)
         if pert > 0:
             out = out + pert * rng.standard_normal(shape)
@@ -142,6 +144,15 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
 
     name = "pretrained_perturbed" if pert > 0 else "pretrained"
     return Strategy(name, init, {"perturbation": pert, **settings._asdict()})
+
+
+@contextmanager
+def _bounded_compile():
+    """A draw's compile is bounded by ``compile_iter`` on purpose: its quality shows in the
+    numbers the sweep records (gradients, step-0 accuracy), not in a warning per draw."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        yield
 
 
 def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
@@ -175,10 +186,7 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
                                for c in np.unique(labels)])
         clf = GibbsClassifier(terms, l2=settings.l2, rule="single-shot").fit(
             states[boot], labels[boot])
-        with warnings.catch_warnings():
-            # a draw's compile is bounded by compile_iter on purpose; its quality shows in
-            # the step-0 accuracy the sweep records, not in a warning per draw
-            warnings.simplefilter("ignore", ConvergenceWarning)
+        with _bounded_compile():
             result = readout_compile([m.state() for m in clf.models_], circuit,
                                      tuple(readout), priors=clf.priors_,
                                      restarts=int(settings.restarts),
