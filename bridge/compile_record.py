@@ -11,7 +11,8 @@ from pathlib import Path
 import numpy as np
 
 from thermoseed.bridge.ansatz import Ansatz, make_ansatz
-from thermoseed.bridge.compile import CompileReport, CompileResult, Latent
+from thermoseed.bridge.compile import CompileReport, CompileResult
+from thermoseed.bridge.latent import Latent
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import json_scalar, read_record, write_record
 

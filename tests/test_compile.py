@@ -516,7 +516,7 @@ def test_compile_takes_one_engine_evaluation(model2, monkeypatch):
 def test_labelled_order_puts_each_class_on_its_readout_bit():
     """Slot i lands on a distinct basis state whose readout bit is classes[i]; a full half
     overflows to the other half (hand-checked on n = 2: halves {0, 1} and {2, 3})."""
-    from thermoseed.bridge.compile import labelled_order
+    from thermoseed.bridge.latent import labelled_order
 
     classes = np.array([1, 0, 1, 1, 0, 0, 1, 0])
     for readout in (0, 2):
@@ -529,7 +529,7 @@ def test_labelled_order_puts_each_class_on_its_readout_bit():
 def test_eigenvector_classes_by_balanced_overlap():
     """Basis-state data: eigenvector |x> belongs to the class whose states sit on |x>
     (computed by hand); class sizes are balanced out (3 states of class 0, 1 of class 1)."""
-    from thermoseed.bridge.compile import eigenvector_classes
+    from thermoseed.bridge.latent import eigenvector_classes
 
     eye = np.eye(4)
     states = eye[[0, 0, 1, 2]]
@@ -545,7 +545,7 @@ def test_class_data_places_the_latent(model2):
     result = compile_latent(model2, make_ansatz("strong", 2, 2), restarts=1, max_iter=5,
                             class_data=(data, labels))
     gibbs = model2.evaluate(want_state=True)
-    from thermoseed.bridge.compile import eigenvector_classes
+    from thermoseed.bridge.latent import eigenvector_classes
 
     classes = eigenvector_classes(gibbs.vectors, data, labels)[: len(result.latent.basis)]
     np.testing.assert_array_equal((result.latent.basis >> 1) & 1, classes)

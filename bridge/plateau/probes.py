@@ -1,4 +1,4 @@
-"""Initialisation strategies and gradient probes for the barren-plateau comparison.
+"""Gradient probes and training curves for the barren-plateau comparison.
 
 Probe circuit (every strategy, every cost): one ansatz U with ``depth`` layers on n wires,
 used twice in the downstream orientation,

@@ -1,0 +1,1 @@
+"""Our demo scenarios: seeded data generators that import ``thermoseed.pretrain`` only."""

@@ -75,7 +75,8 @@ import numpy as np
 import pennylane as qml
 
 from thermoseed.bridge.ansatz import ansatz_columns, columns, make_ansatz
-from thermoseed.bridge.compile import compile_latent, spectrum_latent
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.latent import spectrum_latent
 from thermoseed.pretrain import VisibleGibbsModel
 from thermoseed.pretrain.linalg import entropy_of_spectrum, log_sum_exp_neg
 from thermoseed.recipes.scenarios.magnet_phase import tfim_coefficients, tfim_terms
