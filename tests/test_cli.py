@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from markdown_check import rendered_structure
 
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.recipes.cli import main
@@ -97,6 +98,10 @@ def test_recipe_run_writes_every_output(tiny_runs):
         assert f["params"].size == 2 * 12
     report = (run / "report.md").read_text()
     assert "In plain words" in report and "no hardware advantage is claimed" in report
+    # Source: markdown-it-py (CommonMark + GFM tables): one title, one limits statement
+    shape = rendered_structure(report)
+    assert shape["h1"] == 1 and report.count("Limits:") == 1
+    assert shape["tables"] == 3 and shape["images"] >= 2
 
 
 def test_recipe_rerun_same_seed_reproduces_numbers(tiny_runs):

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import matplotlib.image
 import pytest
+from markdown_check import rendered_structure
 
 from thermoseed.bridge.plateau.report import LIMITS, write_report
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
@@ -33,6 +34,9 @@ def test_report_renders_with_readable_pngs(tmp_path):
         image = matplotlib.image.imread(png)
         assert image.ndim == 3 and image.shape[0] > 100 and image.shape[1] > 100
     assert "| local | identity blocks |" in text and "steps to target" in text
+    # Source: markdown-it-py, a CommonMark parser with GFM tables: what a reader sees.
+    # decay table + per-size table + curve table; one title, two sections; two plots
+    assert rendered_structure(text) == {"h1": 1, "h2": 2, "h3": 0, "tables": 3, "images": 2}
 
 
 def test_report_needs_records(tmp_path):
