@@ -267,6 +267,15 @@ def load_training_data(path, *, kind: str | None = None, renormalize: bool = Fal
         return as_training_data(loaded, kind=kind, renormalize=renormalize)
     with loaded:
         keys = set(loaded.files)
+        if {"states", "density"} <= keys:
+            raise ThermoseedError(
+                f"{str(p)!r} holds both 'states' and 'density'; which did you mean? Keep one "
+                "of them in the file")
+        if kind is not None and kind != ("states" if "states" in keys else "density"):
+            raise ThermoseedError(
+                f"{str(p)!r} holds {'states' if 'states' in keys else 'density'} arrays but "
+                f"kind = {kind!r} was given; an .npz names its kind by its keys: leave kind "
+                "out")
         try:
             weights = loaded["weights"] if "weights" in keys else None
             labels = loaded["labels"] if "labels" in keys else None

@@ -67,6 +67,14 @@ def _word_list(text: str) -> list[str]:
     return [v.strip() for v in text.split(",") if v.strip()]
 
 
+def _names(text: str) -> list[str]:
+    """A non-empty comma-separated list (an empty one would run nothing and say nothing)."""
+    words = _word_list(text)
+    if not words:
+        raise argparse.ArgumentTypeError(f"expected at least one name, got {text!r}")
+    return words
+
+
 def _json(payload, indent: int | None = None) -> str:
     """``json_text`` (imported late: ``--help`` stays free of numpy)."""
     from thermoseed.pretrain.files import json_text
@@ -287,13 +295,14 @@ def build_parser() -> argparse.ArgumentParser:
                "--data thermoseed-runs/magnet-phase/data.npz --out cls.jsonl")
     p.add_argument("--out", required=True, help="results file (.jsonl), appended and resumed")
     p.add_argument("--sizes", type=_int_list, required=True, help="qubit counts, e.g. 2,4,6")
-    p.add_argument("--strategies", type=_word_list,
+    p.add_argument("--strategies", type=_names,
                    default=["uniform", "small_angle", "identity_blocks"],
                    help="uniform, small_angle, identity_blocks, pretrained, "
                         "pretrained_perturbed (default: the first three)")
-    p.add_argument("--costs", type=_word_list, default=["local", "global"],
+    p.add_argument("--costs", type=_names, default=["local", "global"],
                    help="local, global, classifier (default local,global)")
-    p.add_argument("--seeds", type=_positive_int, default=20, help="seeds per point")
+    p.add_argument("--seeds", type=_int_at_least(2), default=20,
+                   help="seeds per point (at least 2: variances need two)")
     p.add_argument("--seed", type=_nonneg_int, default=0, help="first seed")
     p.add_argument("--depths", type=_int_list, help="layers per block (default: n)")
     p.add_argument("--template", choices=["soft", "strong", "entangler", "ladder"],
@@ -336,7 +345,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    if not argv:  # bare `thermoseed`: the help, not a usage error
+        parser.print_help()
+        return 0
+    args = parser.parse_args(argv)
     try:
         return args.handler(args) or 0
     except ThermoseedError as err:

@@ -399,3 +399,31 @@ def test_written_files_follow_the_umask_and_json_is_strict(tmp_path):
     assert path.stat().st_mode & 0o777 == 0o644
     text = json_text({"a": float("inf"), "b": [float("nan"), 1.5], "c": np.float64(2.0)})
     assert json.loads(text) == {"a": "inf", "b": ["nan", 1.5], "c": 2.0}
+
+
+@pytest.mark.parametrize("argv", [
+    ["sweep", "--sizes", "2,3", "--seeds", "1", "--out", "r.jsonl"],
+    ["sweep", "--sizes", "2,3", "--strategies", "", "--out", "r.jsonl"],
+])
+def test_sweep_refuses_what_its_report_cannot_use(argv, capsys):
+    """One seed gives no variance (the report failed later); no strategy ran 0 jobs, exit 0."""
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    assert info.value.code == 2 and "Traceback" not in capsys.readouterr().err
+
+
+def test_bare_command_prints_help(capsys):
+    assert main([]) == 0
+    assert "usage: thermoseed" in capsys.readouterr().out
+
+
+def test_npz_with_both_kinds_or_a_contradicting_kind_is_refused(tmp_path):
+    from thermoseed.pretrain import load_training_data
+
+    states = np.eye(4, dtype=complex)[:2]
+    np.savez(tmp_path / "both.npz", states=states, density=np.eye(4)[None] / 4)
+    with pytest.raises(ThermoseedError, match="both 'states' and 'density'"):
+        load_training_data(tmp_path / "both.npz")
+    np.savez(tmp_path / "s.npz", states=states)
+    with pytest.raises(ThermoseedError, match="kind = 'density' was given"):
+        load_training_data(tmp_path / "s.npz", kind="density")
