@@ -12,6 +12,7 @@ import sys
 from pathlib import Path
 
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.config import TEMPLATE_NAMES
 
 
 def _int_at_least(low: int):
@@ -40,6 +41,21 @@ def _version() -> str:
         return metadata.version("thermoseed")
     except metadata.PackageNotFoundError:  # running from a source tree without install
         return "unknown"
+
+
+def _grid_shape(text: str) -> tuple[int, int]:
+    try:
+        rows, cols = (int(v) for v in text.lower().split("x"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected ROWSxCOLS, e.g. 2x3, got {text!r}") from None
+    return rows, cols
+
+
+def _edge_list(text: str) -> list[tuple[int, int]]:
+    try:
+        return [tuple(int(v) for v in pair.split("-")) for pair in _word_list(text)]
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected edges like 0-1,1-2, got {text!r}") from None
 
 
 def _nonneg_float(text: str) -> float:
@@ -110,15 +126,28 @@ def _cmd_fit(args) -> int:
 
     data = load_training_data(args.data, kind=args.kind, renormalize=args.renormalize)
     terms = graph_terms(data.n_qubits, args.graph, fields=args.fields,
-                        couplings=args.couplings, extra=args.extra)
+                        couplings=args.couplings, extra=args.extra, shape=args.shape,
+                        edges=args.edges, parity=args.parity)
     model = VisibleGibbsModel(terms, solver=args.solver, l2=args.l2, tol=args.tol,
                               max_iter=args.max_iter, seed=args.seed,
                               progress=not args.quiet, checkpoint=args.checkpoint)
     model.fit(data)
     path = model.save(args.out)
-    print(_json({"model": str(path), "n_qubits": data.n_qubits, "terms": len(terms),
-                      "relative_entropy": model.loss_, "grad_norm": model.grad_norm_,
-                      "iterations": model.n_iter_, "converged": bool(model.converged_)}))
+    from thermoseed.pretrain import fidelity, trace_distance
+
+    sigma = model.state()
+    summary = {"model": str(path), "n_qubits": data.n_qubits, "terms": len(terms),
+               "relative_entropy": model.loss_, "data_entropy": model.data_entropy_,
+               "fidelity": fidelity(data.rho, sigma),
+               "trace_distance": trace_distance(data.rho, sigma),
+               "grad_norm": model.grad_norm_, "iterations": model.n_iter_,
+               "converged": bool(model.converged_)}
+    _say(args, f"fit: S(rho||sigma) = {model.loss_:.4g} nats (data entropy "
+               f"{model.data_entropy_:.4g}), fidelity {summary['fidelity']:.4f}, trace "
+               f"distance {summary['trace_distance']:.4f}; {model.n_iter_} iterations, "
+               f"{'converged' if model.converged_ else 'NOT converged (raise --max-iter)'}; "
+               f"{len(terms)} terms -> {path}")
+    print(_json(summary))
     return 0
 
 
@@ -233,23 +262,31 @@ def build_parser() -> argparse.ArgumentParser:
         sub, "fit", _cmd_fit, help="fit a Gibbs model to a data file (.npy/.npz)",
         description="Fit a Gibbs model exp(-H)/Z over a Pauli term set by minimising the "
                     "relative entropy S(rho||sigma) to the training states.",
-        epilog="example: thermoseed fit states.npz --graph ring --fields XZ "
-               "--couplings ZZ,XX --l2 1e-3 --out model.npz")
+        epilog="examples:\n  thermoseed fit states.npz --out model.npz\n"
+               "  thermoseed fit states.npz --graph grid --shape 2x3 --fields XYZ "
+               "--couplings ZZ,XX,YY --l2 1e-3 --out model.npz")
     p.add_argument("data", help=".npy/.npz training data (README schema)")
     p.add_argument("--out", required=True, help="model file to write (.npz)")
     p.add_argument("--kind", choices=["states", "density"], help="for ambiguous .npy arrays")
     p.add_argument("--renormalize", action="store_true", help="renormalise traces/norms")
-    p.add_argument("--graph", default="ring",
-                   choices=["line", "ring", "complete"], help="coupling graph (default ring)")
-    p.add_argument("--fields", default="XYZ", help="single-qubit letters (default XYZ)")
-    p.add_argument("--couplings", type=_word_list, default=["XX", "YY", "ZZ"],
-                   help="comma-separated letter pairs on each edge (default XX,YY,ZZ)")
+    p.add_argument("--graph", default="line",
+                   choices=["line", "ring", "grid", "complete", "edges"],
+                   help="coupling graph (default line; grid needs --shape, edges --edges)")
+    p.add_argument("--shape", type=_grid_shape, help="grid rows x columns, e.g. 2x3")
+    p.add_argument("--edges", type=_edge_list, help="edge list for --graph edges, e.g. 0-1,1-2")
+    p.add_argument("--fields", default="XZ", help="single-qubit letters (default XZ)")
+    p.add_argument("--couplings", type=_word_list, default=["ZZ", "XX"],
+                   help="comma-separated letter pairs on each edge (default ZZ,XX)")
     p.add_argument("--extra", type=_word_list, default=[], help="extra Pauli labels")
-    p.add_argument("--solver", choices=["lbfgs", "adam"], default="lbfgs")
-    p.add_argument("--l2", type=_nonneg_float, default=0.0, help="L2 penalty (default 0)")
+    p.add_argument("--parity", action="store_true",
+                   help="add the global X/Y parity strings and Z...Z (they see a GHZ phase)")
+    p.add_argument("--solver", choices=["lbfgs", "adam"], default="lbfgs",
+                   help="lbfgs (exact moments) or adam (noisy moments)")
+    p.add_argument("--l2", type=_nonneg_float, default=1e-3,
+                   help="L2 penalty (default 1e-3: pure or low-rank data need one)")
     p.add_argument("--tol", type=_nonneg_float, default=1e-6, help="gradient-norm tolerance")
-    p.add_argument("--max-iter", type=_positive_int, default=500)
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--max-iter", type=_positive_int, default=500, help="iteration cap")
+    p.add_argument("--seed", type=_nonneg_int, default=0, help="seed of the initial point")
     p.add_argument("--checkpoint", help="checkpoint file: saved during the fit, resumed from")
 
     p = _subcommand(
@@ -260,16 +297,19 @@ def build_parser() -> argparse.ArgumentParser:
                "--out compile.npz")
     p.add_argument("model", help="model file from 'thermoseed fit'")
     p.add_argument("--out", required=True, help="compile file to write (.npz)")
-    p.add_argument("--ansatz", choices=["strong", "entangler", "ladder", "soft"],
-                   default="strong")
+    p.add_argument("--ansatz", choices=TEMPLATE_NAMES, default="strong",
+                   help="built-in template of the circuit (default strong)")
     p.add_argument("--layers", type=_positive_int, help="layers (default 2 per qubit)")
-    p.add_argument("--latent", choices=["spectrum", "product"], default="spectrum")
+    p.add_argument("--latent", choices=["spectrum", "product"], default="spectrum",
+                   help="latent distribution: top eigenvalues or a trainable product")
     p.add_argument("--k", type=_positive_int, help="latent basis states (default: by weight)")
     p.add_argument("--weight", type=_nonneg_float, default=0.999,
                    help="spectral weight the latent states must hold (default 0.999)")
-    p.add_argument("--restarts", type=_positive_int, default=3)
-    p.add_argument("--max-iter", type=_positive_int, default=300)
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--restarts", type=_positive_int, default=3,
+                   help="seeded random starts, best kept (default 3)")
+    p.add_argument("--max-iter", type=_positive_int, default=300,
+                   help="L-BFGS iterations per start (default 300)")
+    p.add_argument("--seed", type=_nonneg_int, default=0, help="seed of the starts")
     p.add_argument("--data", help="training data, for the report")
 
     p = _subcommand(
@@ -282,7 +322,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("compile", help="compile file")
     p.add_argument("--out", required=True, help="parameter file to write (.npz)")
     p.add_argument("--head", choices=["soft"], help="identity head template (omit: no head)")
-    p.add_argument("--head-layers", type=_positive_int, default=1)
+    p.add_argument("--head-layers", type=_positive_int, default=1,
+                   help="layers of the head (default 1)")
 
     p = _subcommand(
         sub, "sweep", _cmd_sweep,
@@ -305,8 +346,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="seeds per point (at least 2: variances need two)")
     p.add_argument("--seed", type=_nonneg_int, default=0, help="first seed")
     p.add_argument("--depths", type=_int_list, help="layers per block (default: n)")
-    p.add_argument("--template", choices=["soft", "strong", "entangler", "ladder"],
-                   default="soft")
+    p.add_argument("--template", choices=TEMPLATE_NAMES, default="soft",
+                   help="template of both blocks of V = U(h) U(e)^dag (default soft)")
     p.add_argument("--data", help="labelled data (a run folder's data.npz) for the "
                                   "classifier cost and pretrained strategies")
     p.add_argument("--workers", type=_positive_int, help="local processes (default all cores)")
@@ -317,7 +358,7 @@ def build_parser() -> argparse.ArgumentParser:
         epilog="example: thermoseed report results.jsonl --out plateau-report")
     p.add_argument("results", help="results file from 'thermoseed sweep' or a run folder")
     p.add_argument("--out", required=True, help="folder for report.md and PNGs")
-    p.add_argument("--title", default="Plateau comparison")
+    p.add_argument("--title", default="Plateau comparison", help="report title")
     p.add_argument("--target", type=_nonneg_float, default=0.9,
                    help="held-out accuracy for steps-to-target (default 0.9)")
 
@@ -339,7 +380,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = _subcommand(
         sub, "inspect", _cmd_inspect, help="show what is inside a model, compile or result file",
         epilog="example: thermoseed inspect model.npz")
-    p.add_argument("file", )
+    p.add_argument("file", help="any .npz thermoseed wrote")
     return parser
 
 

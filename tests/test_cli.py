@@ -427,3 +427,40 @@ def test_npz_with_both_kinds_or_a_contradicting_kind_is_refused(tmp_path):
     np.savez(tmp_path / "s.npz", states=states)
     with pytest.raises(ThermoseedError, match="kind = 'density' was given"):
         load_training_data(tmp_path / "s.npz", kind="density")
+
+
+def test_every_option_has_help_text():
+    from thermoseed.recipes.cli import build_parser
+
+    parser = build_parser()
+    sub = next(a for a in parser._actions if a.dest == "command")
+    missing = [f"{name} {opt.option_strings or opt.dest}"
+               for name, p in sub.choices.items() for opt in p._actions
+               if not opt.help and "--help" not in opt.option_strings]
+    assert not missing
+
+
+def test_fit_says_how_good_it_is_and_takes_every_graph(tmp_path, capsys):
+    rng = np.random.default_rng(0)
+    states = rng.standard_normal((6, 16)) + 1j * rng.standard_normal((6, 16))
+    states /= np.linalg.norm(states, axis=1, keepdims=True)
+    np.savez(tmp_path / "d.npz", states=states)
+    argv = ["fit", str(tmp_path / "d.npz"), "--out", str(tmp_path / "m.npz"),
+            "--graph", "grid", "--shape", "2x2"]
+    assert main(argv) == 0
+    captured = capsys.readouterr()
+    assert "S(rho||sigma) =" in captured.err and "fidelity" in captured.err
+    out = json.loads(captured.out)
+    assert 0 < out["fidelity"] <= 1 and out["terms"] == 2 * 4 + 2 * 4  # XZ fields, ZZ,XX
+    assert main(["fit", str(tmp_path / "d.npz"), "--out", str(tmp_path / "e.npz"),
+                 "--graph", "edges", "--edges", "0-3,1-2", "--quiet"]) == 0
+    assert json.loads(capsys.readouterr().out)["terms"] == 2 * 4 + 2 * 2
+
+
+def test_recipe_template_names_are_the_registry():
+    """config keeps the names as plain strings (no PennyLane import for --help); they must be
+    the bridge registry's."""
+    from thermoseed.bridge.templates import TEMPLATES
+    from thermoseed.recipes.config import TEMPLATE_NAMES
+
+    assert set(TEMPLATE_NAMES) == set(TEMPLATES)
