@@ -5,8 +5,9 @@ Two sources, two layouts:
 * **Labels known** (``GibbsClassifier``, one Gibbs model sigma_c per class): the circuit as
   the user wrote it is the whole classifier, data state -> ``V(phi)`` -> readout wire(s).
   ``warm_start`` maximises the readout's success probability on the class models,
-  ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` (``bridge.readout``), so at step 0 the
-  circuit already measures (close to) the Helstrom measurement between the class models.
+  ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` (``bridge.readout``; sigma_c =
+  ``clf.class_states()``, the models at the classifier's cooling), so at step 0 the circuit
+  already measures (close to) the Helstrom measurement between them.
   Class 1 is read as outcome 1 on the readout wire, i.e. ``p(class 1) = (1 - <Z>)/2``.
 * **Unlabelled** (one ``VisibleGibbsModel`` or its ``CompileResult``): data state -> encoder
   ``U(phi)^dag`` -> head -> readout; the compiled ``phi`` goes in the encoder and the head
@@ -131,7 +132,7 @@ def _classifier_start(clf: GibbsClassifier, ansatz, head, readout, seed, restart
         raise ThermoseedError(f"your circuit acts on {ansatz.n_wires} wires but the class "
                               f"models on {n} qubits; use a circuit on {n} wires")
     circuit = ansatz if head is None else TwoBlock(ansatz, head).as_ansatz()
-    result = readout_compile([m.state() for m in clf.models_], circuit, readout,
+    result = readout_compile(clf.class_states(), circuit, readout,
                              priors=clf.priors_, restarts=restarts, seed=seed,
                              progress=progress)
     params = pnp.array(np.asarray(result.params, dtype=float), requires_grad=True)

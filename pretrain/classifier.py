@@ -67,6 +67,8 @@ ZERO_RTOL = 1e-12
 #: Largest |sum(priors) - 1| accepted for explicit priors.
 PRIOR_ATOL = 1e-8
 CLASSIFIER_KIND = "gibbs-classifier"
+#: Cooling factors ``cooling="auto"`` chooses from (by training accuracy of the rule).
+COOLING_GRID = (1.0, 2.0, 4.0, 8.0, 16.0)
 #: Wrong-trace advice where no renormalize option exists.
 TRACE_HINT = "divide it by its trace first"
 
@@ -249,6 +251,24 @@ def single_shot(states, priors) -> tuple[np.ndarray, float]:
     return povm, success_probability(povm, states, priors)
 
 
+def cooled_states(terms: TermSet, models, beta: float) -> np.ndarray:
+    """(C, d, d) ``exp(-beta H_c) / Z_c(beta)`` of fitted class models."""
+    if beta == 1.0:
+        return np.stack([m.state() for m in models])
+    return np.stack([VisibleGibbsModel.from_coefficients(terms, beta * m.coef_).state()
+                     for m in models])
+
+
+def _povm_probs(povm: np.ndarray, batch: StateBatch) -> np.ndarray:
+    """(B, C) outcome probabilities ``Tr(M_c rho_b)``, clipped at 0 and renormalised."""
+    if batch.kind == "states":
+        probs = np.einsum("ba,cax,bx->bc", batch.data.conj(), povm, batch.data).real
+    else:
+        probs = np.einsum("cab,kba->kc", povm, batch.data).real
+    probs = np.clip(probs, 0.0, None)
+    return probs / probs.sum(axis=1, keepdims=True)
+
+
 # ---------------------------------------------------------------- the classifier
 
 
@@ -263,18 +283,28 @@ class GibbsClassifier(ParamsMixin):
             majority class), ``"empirical"`` (class frequencies) or C explicit values.
         l2, tol, max_iter, solver, engine, progress: passed to every ``VisibleGibbsModel``.
         renormalize: divide unnormalised states by their norm (trace) instead of failing.
+        cooling: the single-shot rule (and every compile of it) works with the class models
+            cooled by a factor ``beta >= 1``, ``exp(-beta H_c) / Z_c(beta)``; ``beta = 1`` is
+            the fitted models. Pure or low-rank training states fitted with an L2 penalty
+            give models hotter than the data (the penalty keeps the coefficients finite);
+            cooling undoes part of that. ``"auto"`` (default) takes the ``beta`` in
+            ``COOLING_GRID`` whose single-shot rule classifies the training states best
+            (ties: the smallest). The many-copy rule always uses the fitted models.
 
     Attributes:
         terms_, classes_, class_counts_, priors_: the term set, ``0..C-1``, counts, priors.
         models_: fitted ``VisibleGibbsModel`` per class. coef_: (C, K) coefficients.
         log_partition_: (C,) ``log Z_c``. loss_: (C,) ``S(rho_c||sigma_c)``. converged_: (C,).
-        povm_: (C, d, d) single-shot measurement between the models (``measurement()``).
-        model_success_, data_success_: single-shot success on the models / class mixtures.
+        cooling_: the ``beta`` the single-shot rule uses (``class_states()``).
+        povm_: (C, d, d) single-shot measurement between the cooled models.
+        model_success_: single-shot success between the cooled models;
+        data_success_: between the data's own class mixtures.
     """
 
     def __init__(self, terms, *, rule: str = "many-copy", priors="balanced", l2: float = 1e-3,
                  tol: float = 1e-6, max_iter: int = 500, solver: str = "lbfgs",
-                 engine: str = "dense", renormalize: bool = False, progress: bool = False):
+                 engine: str = "dense", renormalize: bool = False, cooling="auto",
+                 progress: bool = False):
         self.terms = terms
         self.rule = rule
         self.priors = priors
@@ -284,6 +314,7 @@ class GibbsClassifier(ParamsMixin):
         self.solver = solver
         self.engine = engine
         self.renormalize = renormalize
+        self.cooling = cooling
         self.progress = progress
 
     def _model_params(self) -> dict:
@@ -302,22 +333,44 @@ class GibbsClassifier(ParamsMixin):
         priors = resolve_priors(self.priors, counts)
         mixtures = [batch_mixture(batch.subset(y == c)) for c in range(n_classes)]
         models = [VisibleGibbsModel(terms, **self._model_params()).fit(td) for td in mixtures]
-        self._set_models(terms, models, priors)
+        self._set_models(terms, models, priors, self._choose_cooling(terms, models, priors,
+                                                                     batch, y))
         self.class_counts_ = counts
         self.loss_ = np.array([m.loss_ for m in models])
         self.converged_ = np.array([m.converged_ for m in models])
         self.data_success_ = single_shot(np.stack([td.rho for td in mixtures]), priors)[1]
         return self
 
-    def _set_models(self, terms: TermSet, models: list, priors: np.ndarray) -> None:
+    def _choose_cooling(self, terms, models, priors, batch: StateBatch, y) -> float:
+        if self.cooling != "auto":
+            beta = real_number(self.cooling, "cooling")
+            if beta < 1:
+                raise ThermoseedError(f"cooling = {self.cooling!r} must be >= 1 (1: the "
+                                      "fitted models) or 'auto'")
+            return beta
+        best, best_hits = 1.0, -1.0
+        for beta in COOLING_GRID:
+            povm, _ = single_shot(cooled_states(terms, models, beta), priors)
+            hits = float(np.mean(np.argmax(_povm_probs(povm, batch), axis=1) == y))
+            if hits > best_hits:
+                best, best_hits = beta, hits
+        return best
+
+    def _set_models(self, terms: TermSet, models: list, priors: np.ndarray,
+                    cooling: float = 1.0) -> None:
         self.terms_ = terms
         self.models_ = models
         self.classes_ = np.arange(len(models))
         self.priors_ = priors
         self.coef_ = np.stack([m.coef_ for m in models])
         self.log_partition_ = np.array([m.log_partition() for m in models])
-        self.povm_, self.model_success_ = single_shot(np.stack([m.state() for m in models]),
-                                                      priors)
+        self.cooling_ = float(cooling)
+        self.povm_, self.model_success_ = single_shot(self.class_states(), priors)
+
+    def class_states(self) -> np.ndarray:
+        """(C, d, d) the states the single-shot rule separates: ``exp(-cooling_ H_c)/Z``."""
+        check_is_fitted(self, "coef_")
+        return cooled_states(self.terms_, self.models_, self.cooling_)
 
     # ------------------------------------------------------------------ decisions
     def _batch(self, states) -> StateBatch:
@@ -338,13 +391,7 @@ class GibbsClassifier(ParamsMixin):
         if self.rule == "many-copy":
             scores = self.relative_entropy_scores(states)
             return np.array([log_sum_exp_neg(-row)[1] for row in scores])
-        batch = self._batch(states)
-        if batch.kind == "states":
-            probs = np.einsum("ba,cax,bx->bc", batch.data.conj(), self.povm_, batch.data).real
-        else:
-            probs = np.einsum("cab,kba->kc", self.povm_, batch.data).real
-        probs = np.clip(probs, 0.0, None)
-        return probs / probs.sum(axis=1, keepdims=True)
+        return _povm_probs(self.povm_, self._batch(states))
 
     def predict(self, states) -> np.ndarray:
         """The most probable class per state (``argmax predict_proba``)."""
@@ -380,7 +427,8 @@ class GibbsClassifier(ParamsMixin):
         return save_classifier(self, path)
 
 
-_METRICS = (("model_success", "model_success_"), ("data_success", "data_success_"))
+_METRICS = (("model_success", "model_success_"), ("data_success", "data_success_"),
+            ("cooling", "cooling_"))
 
 
 def save_classifier(clf: GibbsClassifier, path) -> Path:
@@ -417,7 +465,7 @@ def load_classifier(path) -> GibbsClassifier:
                               f"{coef.shape}, log_partition {log_z.shape}, priors {priors.shape}")
     models = [VisibleGibbsModel.from_coefficients(terms, row, **clf._model_params())
               for row in coef]
-    clf._set_models(terms, models, priors)
+    clf._set_models(terms, models, priors, float(metrics.get("cooling", 1.0)))
     clf.log_partition_ = log_z
     for name, attr in _METRICS:
         if name in metrics:

@@ -66,9 +66,9 @@ def _size_lines(n: int, summaries: dict, rules: dict | None, target: float) -> l
         lines.append(
             f"Exact rules of one Gibbs model per class (fitted on the training states): "
             f"nearest model in relative entropy (many-copy) {rules['many_copy_accuracy']:.2f}, "
-            f"Helstrom measurement (single-shot) {rules['single_shot_accuracy']:.2f} held-out "
-            f"accuracy on {held_out} states. Single-shot success bounds: "
-            f"{rules['model_success']:.3f} between the fitted models, "
+            f"Helstrom measurement (single-shot, models cooled by {rules.get('cooling', 1):g}) "
+            f"{rules['single_shot_accuracy']:.2f} held-out accuracy on {held_out} states. "
+            f"Single-shot success bounds: {rules['model_success']:.3f} between the models, "
             f"{rules['data_success']:.3f} between the data's own class mixtures.")
         if best_rule < GOOD_RULE:
             lines.append(

@@ -146,12 +146,13 @@ def class_rule_accuracies(data: LabelledData, settings: PretrainSettings) -> dic
     the training part with the recipe's term set and penalty, balanced priors), and the
     single-shot bounds: Helstrom success between the fitted models and between the data's
     own class mixtures."""
-    clf = GibbsClassifier(settings.terms(data.n_qubits), l2=settings.l2).fit(
+    clf = GibbsClassifier(settings.terms(data.n_qubits), l2=settings.l2,
+                          cooling=settings.cooling).fit(
         data.train_states, data.train_labels)
     many = clf.score(data.test_states, data.test_labels)
     single = clf.set_params(rule="single-shot").score(data.test_states, data.test_labels)
     return {"many_copy_accuracy": float(many), "single_shot_accuracy": float(single),
-            "model_success": float(clf.model_success_),
+            "cooling": clf.cooling_, "model_success": float(clf.model_success_),
             "data_success": float(clf.data_success_), "held_out": len(data.test_labels)}
 
 

@@ -329,3 +329,30 @@ def test_candidate_terms_counts_and_parity():
     assert all(p.weight <= 2 for p in candidate_terms(4, 2, "line", parity=False))
     capped = candidate_terms(4, 2, "line", max_count=10)
     assert capped.labels == terms.labels[:10]
+
+
+def test_cooled_class_states_and_the_auto_choice():
+    """cooling = beta: the single-shot rule separates exp(-beta H_c)/Tr (checked against
+    scipy.linalg.expm); "auto" takes the grid value whose rule classifies the training states
+    best (checked by refitting at every grid value)."""
+    import scipy.linalg
+
+    from thermoseed.pretrain.classifier import COOLING_GRID
+    from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data
+
+    batch = magnet_phase_data(3, 24, seed=2)
+    terms = graph_terms(3, "line", fields="XZ", couplings=("ZZ",))
+    fixed = GibbsClassifier(terms, rule="single-shot", cooling=4.0).fit(batch.states,
+                                                                         batch.labels)
+    for c, model in enumerate(fixed.models_):
+        cooled = scipy.linalg.expm(-4.0 * model.hamiltonian())
+        np.testing.assert_allclose(fixed.class_states()[c], cooled / np.trace(cooled),
+                                   atol=1e-10)
+    scores = {beta: GibbsClassifier(terms, rule="single-shot", cooling=beta).fit(
+        batch.states, batch.labels).score(batch.states, batch.labels) for beta in COOLING_GRID}
+    auto = GibbsClassifier(terms, rule="single-shot").fit(batch.states, batch.labels)
+    best = max(scores.values())
+    assert auto.cooling_ == min(b for b, s in scores.items() if s == best)
+    assert auto.score(batch.states, batch.labels) == best
+    with pytest.raises(ThermoseedError, match="cooling = 0.5 must be >= 1"):
+        GibbsClassifier(terms, cooling=0.5).fit(batch.states, batch.labels)

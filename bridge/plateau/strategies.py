@@ -97,6 +97,7 @@ class PretrainSettings(NamedTuple):
     restarts: int = 1
     compile_iter: int = 300
     parity: bool = False
+    cooling: str | float = "auto"
 
     def terms(self, n_qubits: int):
         """The Gibbs models' term set at ``n_qubits`` (``graph_terms`` of these settings)."""
@@ -161,7 +162,8 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
 
     ``init((n_params,), rng)``: resample the training states with replacement within each
     class (from rng), fit a ``GibbsClassifier`` (one Gibbs model per class on the settings'
-    term set, balanced priors), and maximise the readout's success probability
+    term set, balanced priors, the settings' cooling), and maximise the readout's success
+    probability on its ``class_states()``
     ``sum_c p_c Tr(Pi_c V sigma_c V^dag)`` by ``readout_compile`` (restarts and iterations
     from the settings, seed from rng; stopped ``WARM_START_GAP`` short of the attainable
     value, on the components of the class models holding all but ``WARM_START_GAP`` of
@@ -184,10 +186,10 @@ def class_models(data: LabelledData, encoder: Ansatz, head: Ansatz,
         boot = np.concatenate([rng.choice(np.flatnonzero(labels == c),
                                           size=int(np.sum(labels == c)))
                                for c in np.unique(labels)])
-        clf = GibbsClassifier(terms, l2=settings.l2, rule="single-shot").fit(
-            states[boot], labels[boot])
+        clf = GibbsClassifier(terms, l2=settings.l2, rule="single-shot",
+                              cooling=settings.cooling).fit(states[boot], labels[boot])
         with _bounded_compile():
-            result = readout_compile([m.state() for m in clf.models_], circuit,
+            result = readout_compile(clf.class_states(), circuit,
                                      tuple(readout), priors=clf.priors_,
                                      restarts=int(settings.restarts),
                                      seed=int(rng.integers(2**31)),
