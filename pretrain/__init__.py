@@ -3,8 +3,9 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> labelled -> engines ->
-    optim -> models -> classifier -> term_growth -> diagnostics
+    lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> labelled ->
+    engines -> optim -> models -> classifier -> term_growth -> diagnostics -> frechet ->
+    hidden_layout -> hidden_engines -> hidden -> hidden_diagnostics
 """
 
 from thermoseed.pretrain.lazy import lazy_exports
@@ -18,8 +19,16 @@ EXPORTS = {
         "load_training_data", "TrainingData"),
     "diagnostics": ("fidelity", "moment_residuals", "relative_entropy", "trace_distance"),
     "engines": ("DenseEngine", "GibbsEngine", "GibbsEvaluation", "make_engine"),
-    "errors": ("ConvergenceWarning", "DivergenceWarning", "NotFittedError", "ThermoseedError"),
+    "errors": ("ConvergenceWarning", "DivergenceWarning", "NotFittedError", "ThermoseedError",
+        "WashoutWarning"),
     "files": ("read_record", "write_record"),
+    "frechet": ("daleckii_krein", "exp_divided_differences", "frechet_exp", "frechet_log",
+        "log_divided_differences"),
+    "hidden": ("HiddenGibbsModel", "load_hidden_model", "save_hidden_model"),
+    "hidden_diagnostics": ("HiddenFitReport", "hidden_fit_report", "page_entropy",
+        "WashoutReport", "washout_report"),
+    "hidden_engines": ("BlockHiddenEngine", "DenseHiddenEngine", "HiddenEvaluation"),
+    "hidden_layout": ("block_structure", "hidden_terms", "term_roles"),
     "labelled": ("LabelledData", "split_labelled", "stratified_split"),
     "linalg": ("von_neumann_entropy",),
     "models": ("load_model", "save_model", "VisibleGibbsModel"),

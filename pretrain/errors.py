@@ -17,3 +17,8 @@ class DivergenceWarning(UserWarning):
 
 class ConvergenceWarning(UserWarning):
     """An optimiser stopped at its iteration cap before meeting its tolerance."""
+
+
+class WashoutWarning(UserWarning):
+    """A hidden-qubit model's most probable eigenvectors are about as entangled across the
+    visible/hidden cut as random states: tracing out the hidden qubits washes the model out."""
