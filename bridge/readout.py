@@ -43,7 +43,7 @@ import scipy.optimize
 from tqdm.auto import tqdm
 
 from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
-from thermoseed.pretrain.classifier import (
+from thermoseed.pretrain.measurements import (
     TRACE_HINT,
     helstrom_success,
     pretty_good_measurement,

@@ -4,8 +4,9 @@ Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed
 
 Layer order, lowest first (a module imports only modules before it):
     lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> labelled ->
-    engines -> optim -> models -> classifier -> term_growth -> diagnostics -> frechet ->
-    hidden_layout -> hidden_engines -> hidden -> hidden_diagnostics
+    engines -> optim -> models -> measurements ->
+    classifier -> term_growth -> diagnostics -> frechet -> hidden_layout -> hidden_engines ->
+    hidden -> hidden_diagnostics
 """
 
 from thermoseed.pretrain.lazy import lazy_exports
@@ -13,8 +14,7 @@ from thermoseed.pretrain.lazy import lazy_exports
 #: Public names by defining module, imported on first use (PEP 562): ``import
 #: thermoseed.pretrain`` stays cheap (the command line's ``--help`` never loads scipy).
 EXPORTS = {
-    "classifier": ("GibbsClassifier", "helstrom_measurement", "helstrom_success",
-        "load_classifier", "pretty_good_measurement", "save_classifier", "success_probability"),
+    "classifier": ("GibbsClassifier", "load_classifier", "save_classifier"),
     "data": ("as_training_data", "from_density_matrices", "from_qfunc", "from_states",
         "load_training_data", "TrainingData"),
     "diagnostics": ("fidelity", "moment_residuals", "relative_entropy", "trace_distance"),
@@ -29,6 +29,8 @@ EXPORTS = {
         "WashoutReport", "washout_report"),
     "hidden_engines": ("BlockHiddenEngine", "DenseHiddenEngine", "HiddenEvaluation"),
     "hidden_layout": ("block_structure", "hidden_terms", "term_roles"),
+    "measurements": ("helstrom_measurement", "helstrom_success", "pretty_good_measurement",
+        "success_probability"),
     "labelled": ("LabelledData", "split_labelled", "stratified_split"),
     "linalg": ("von_neumann_entropy",),
     "models": ("load_model", "save_model", "VisibleGibbsModel"),
