@@ -188,18 +188,50 @@ def _cmd_warm_start(args) -> int:
 
 
 def _cmd_inspect(args) -> int:
+    if str(args.file).endswith(".jsonl") or Path(args.file).is_dir():
+        print(_json(_sweep_summary(args.file), indent=2))
+        return 0
     import numpy as np
 
-    from thermoseed.pretrain.files import load_npz, read_record
+    from thermoseed.pretrain.files import RECORD_HEADER, load_npz, read_record
 
-    try:
+    arrays = load_npz(args.file, what="file")
+    if RECORD_HEADER in arrays:  # a record: the loader's own checks and messages apply
         header, arrays = read_record(args.file)
-    except ThermoseedError:
-        header, arrays = {"format": "plain .npz arrays"}, load_npz(args.file, what="file")
+    else:
+        header = {"format": "plain .npz arrays (not a thermoseed record)"}
     shown = {k: {"shape": list(np.shape(v)), "dtype": str(np.asarray(v).dtype)}
              for k, v in arrays.items()}
-    print(_json({"header": header, "arrays": shown}, indent=2))
+    values = {k: np.asarray(v).tolist() for k, v in arrays.items()
+              if np.asarray(v).size <= INSPECT_VALUES and np.asarray(v).dtype.kind in "biuf"}
+    if "terms" in header and "coef" in arrays and np.ndim(arrays["coef"]) == 1:
+        values["terms"] = dict(zip(header["terms"], np.asarray(arrays["coef"]).tolist(),
+                                   strict=False))
+    print(_json({"header": header, "arrays": shown, "values": values}, indent=2))
     return 0
+
+
+#: Arrays up to this many entries are printed by ``inspect`` (longer ones: shape only).
+INSPECT_VALUES = 64
+
+
+def _sweep_summary(path) -> dict:
+    """Jobs, sizes, strategies, costs and failures of a results file (or run folder)."""
+    from collections import Counter
+
+    from thermoseed.bridge.plateau.sweep import read_records
+
+    records = read_records(path)
+    jobs = [r["job"] for r in records]
+    failed = [r["key"] for r in records if not isinstance(r.get("result"), dict)
+              or "error" in r["result"]]
+    return {"records": len(records),
+            "tasks": dict(Counter(j["task"] for j in jobs)),
+            "sizes": sorted({j["n_qubits"] for j in jobs}),
+            "strategies": dict(Counter(j["strategy"] for j in jobs)),
+            "costs": dict(Counter(j["cost"] for j in jobs)),
+            "seconds": round(sum(float(r.get("seconds", 0.0)) for r in records), 1),
+            "failures": len(failed)}
 
 
 def _cmd_sweep(args) -> int:

@@ -464,3 +464,27 @@ def test_recipe_template_names_are_the_registry():
     from thermoseed.recipes.config import TEMPLATE_NAMES
 
     assert set(TEMPLATE_NAMES) == set(TEMPLATES)
+
+
+def test_inspect_every_file_kind(tiny_runs, tmp_path, capsys):
+    """Records show their values (model: term -> coefficient), a results .jsonl gets a summary
+    (it used to be called 'pickled (object) data'), a damaged record gets the loader's own
+    message (it used to be called 'plain .npz arrays')."""
+    base, _ = tiny_runs
+    run = base / "a"
+    for name in ("model.npz", "compile.npz", "warm_start.npz", "data.npz"):
+        assert main(["inspect", str(run / name)]) == 0, name
+        shown = json.loads(capsys.readouterr().out)
+        assert shown["header"]["format"] == "thermoseed-record"
+    assert main(["inspect", str(run / "model.npz")]) == 0
+    assert len(json.loads(capsys.readouterr().out)["values"]["terms"]) == 5
+    assert main(["inspect", str(run / "results.jsonl")]) == 0
+    summary = json.loads(capsys.readouterr().out)
+    assert summary["records"] > 0 and summary["failures"] == 0 and summary["sizes"]
+    from thermoseed.pretrain.files import read_record, write_record
+
+    header, arrays = read_record(run / "model.npz")
+    header["version"] = 99
+    write_record(tmp_path / "future.npz", header.pop("kind"), header, arrays)
+    assert main(["inspect", str(tmp_path / "future.npz")]) == 1
+    assert "newer than this thermoseed reads" in capsys.readouterr().err
