@@ -8,6 +8,7 @@ one line on stderr and exit 1; argparse keeps exit 2 for usage errors; ``--debug
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 from pathlib import Path
 
@@ -416,6 +417,33 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: Python spellings in library messages and their command-line options (one message table
+#: serves both: the library words its advice for Python, the CLI translates it here).
+CLI_WORDS = (
+    (re.compile(r"pass kind='states' or kind='density'"), "pass --kind states or --kind density"),
+    (re.compile(r"leave kind\b"), "leave --kind"),
+    (re.compile(r"kind = '(\w+)' was given"), r"--kind \1 was given"),
+    (re.compile(r"renormalize=True"), "--renormalize"),
+    (re.compile(r"pass data=\{(\d+): LabelledData\(\.\.\.\), \.\.\.\}"),
+     r"pass --data with labelled states at n = \1"),
+    (re.compile(r"\braise max_iter\b"), "raise --max-iter"),
+    (re.compile(r"\bloosen tol\b"), "loosen --tol"),
+    (re.compile(r"\bset l2 > 0\b"), "pass --l2 > 0"),
+)
+
+
+def cli_words(message: str) -> str:
+    """A library message with its Python spellings replaced by the command-line options."""
+    for pattern, replacement in CLI_WORDS:
+        message = pattern.sub(replacement, message)
+    return message
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Warnings reach CLI users as one line with the advice, not a source listing."""
+    print(f"thermoseed: warning: {cli_words(str(message))}", file=sys.stderr)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
     parser = build_parser()
@@ -424,12 +452,17 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 0
     args = parser.parse_args(argv)
+    import warnings
+
     try:
-        return args.handler(args) or 0
+        with warnings.catch_warnings():
+            if not args.debug:
+                warnings.showwarning = _one_line_warning
+            return args.handler(args) or 0
     except ThermoseedError as err:
         if args.debug:
             raise
-        print(f"thermoseed: error: {err}", file=sys.stderr)
+        print(f"thermoseed: error: {cli_words(str(err))}", file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         if args.debug:

@@ -488,3 +488,22 @@ def test_inspect_every_file_kind(tiny_runs, tmp_path, capsys):
     write_record(tmp_path / "future.npz", header.pop("kind"), header, arrays)
     assert main(["inspect", str(tmp_path / "future.npz")]) == 1
     assert "newer than this thermoseed reads" in capsys.readouterr().err
+
+
+def test_cli_messages_name_cli_options_and_warnings_are_one_line(tmp_path, capsys):
+    """'pass renormalize=True' reaches a CLI user as '--renormalize'; a warning is one line
+    with the advice, without Python source lines or site-packages paths."""
+    np.save(tmp_path / "sq.npy", np.eye(4, dtype=complex) / 2)  # square: ambiguous
+    assert main(["fit", str(tmp_path / "sq.npy"), "--out", str(tmp_path / "m.npz")]) == 1
+    err = capsys.readouterr().err
+    assert "--kind states or --kind density" in err and "kind='states'" not in err
+    np.savez(tmp_path / "d.npz", states=2 * np.eye(4, dtype=complex)[:2])
+    assert main(["fit", str(tmp_path / "d.npz"), "--out", str(tmp_path / "m.npz")]) == 1
+    err = capsys.readouterr().err
+    assert "--renormalize" in err and "renormalize=True" not in err
+    np.savez(tmp_path / "p.npz", states=np.eye(4, dtype=complex)[:1])  # 2 steps: no convergence
+    assert main(["fit", str(tmp_path / "p.npz"), "--out", str(tmp_path / "m.npz"),
+                 "--l2", "0", "--max-iter", "2", "--quiet"]) == 0
+    warned = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
+    assert warned and all(line.startswith("thermoseed: warning: ") for line in warned)
+    assert not any(".py" in line for line in warned)
