@@ -44,26 +44,14 @@ import sys
 import time
 import warnings
 from functools import reduce
-from pathlib import Path
 
-
-def _preset_threads(argv) -> None:
-    """Apply ``--threads N`` to the BLAS thread variables before numpy is imported."""
-    for i, arg in enumerate(argv):
-        value = arg.split("=", 1)[1] if arg.startswith("--threads=") else (
-            argv[i + 1] if arg == "--threads" and i + 1 < len(argv) else None)
-        if value is not None:
-            for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-                os.environ[var] = value
-
+from blas_threads import preset_threads  # noqa: E402 - stdlib only, before numpy
 
 if __name__ == "__main__":
-    _preset_threads(sys.argv[1:])
+    preset_threads(sys.argv[1:])
 
 import numpy as np  # noqa: E402
 import scipy.linalg  # noqa: E402
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from thermoseed.pretrain import (  # noqa: E402
     ConvergenceWarning,
