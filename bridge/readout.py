@@ -43,6 +43,8 @@ import scipy.optimize
 from tqdm.auto import tqdm
 
 from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
+from thermoseed.pretrain.data import check_density_matrix
+from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
 from thermoseed.pretrain.measurements import (
     TRACE_HINT,
     helstrom_success,
@@ -50,8 +52,6 @@ from thermoseed.pretrain.measurements import (
     prior_vector,
     success_probability,
 )
-from thermoseed.pretrain.data import check_density_matrix
-from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
 
 #: Eigen-directions of a state (or of Gamma) with |weight| at or below this are dropped: the
 #: objective moves by at most d times this.
