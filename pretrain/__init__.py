@@ -3,8 +3,8 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> labelled ->
-    engines -> optim -> models -> measurements ->
+    lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> shadows ->
+    records -> uncertainty -> labelled -> engines -> optim -> models -> measurements ->
     classifier -> term_growth -> diagnostics -> frechet -> hidden_layout -> hidden_engines ->
     hidden -> hidden_diagnostics
 """
@@ -18,7 +18,8 @@ EXPORTS = {
     "data": ("as_training_data", "from_density_matrices", "from_qfunc", "from_states",
         "load_training_data", "TrainingData"),
     "diagnostics": ("fidelity", "moment_residuals", "relative_entropy", "trace_distance"),
-    "engines": ("DenseEngine", "GibbsEngine", "GibbsEvaluation", "make_engine"),
+    "engines": ("DenseEngine", "GibbsEngine", "GibbsEvaluation", "make_engine",
+        "TypicalityEngine"),
     "errors": ("ConvergenceWarning", "DivergenceWarning", "NotFittedError", "ThermoseedError",
         "WashoutWarning"),
     "files": ("read_record", "write_record"),
@@ -38,7 +39,12 @@ EXPORTS = {
     "paulis": ("dense_hamiltonian", "expectations", "from_pennylane", "graph_edges",
         "graph_terms", "pauli_traces", "PauliExpansion", "PauliString", "sparse_hamiltonian",
         "TermSet", "to_pennylane"),
+    "records": ("basis_counts", "BasisCounts", "from_records", "is_records_file",
+        "load_records", "pauli_shots", "PauliShots", "save_records", "simulate_counts",
+        "simulate_shots"),
+    "shadows": ("BasisBiasWarning", "MomentEstimates", "UnmeasuredTermWarning"),
     "term_growth": ("candidate_terms", "grow_terms", "TermGrowth"),
+    "uncertainty": ("coefficient_covariance", "kubo_mori_hessian", "log_partition_hessian"),
 }
 
 __version__ = "0.1.0"

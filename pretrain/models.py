@@ -4,6 +4,13 @@
 ``L(theta) = S(rho||sigma) + (l2/2)|theta|^2 = -S(rho) + theta.m + log Z + (l2/2)|theta|^2``
 with exact gradient ``m - <P>_sigma + l2 theta``, ``m_j = Tr(rho P_j)``. L is convex, so
 L-BFGS reaches the maximum-entropy state whose moments equal the data's.
+
+Measurement records give noisy moments ``m`` with a covariance (``records.from_records``);
+S(rho) is then unknown and the loss reported is the cross entropy
+``-Tr(rho log sigma) = theta.m + log Z``. The fit then stops once the gradient norm is below
+``NOISE_TOL_FRACTION`` of the smallest standard error (further digits are below the noise),
+reports the residuals ``(m_j - <P_j>_sigma) / SE_j`` and propagates the noise into
+``Cov(theta) = (F + l2 I)^{-1} Cov(m) (F + l2 I)^{-1}`` (``pretrain.uncertainty``).
 """
 
 from __future__ import annotations
@@ -21,12 +28,15 @@ from .data import (
     check_qubits,
     square_array_kind,
 )
-from .engines import make_engine
+from .engines import ENGINES, GibbsEngine, choose_engine, make_engine
 from .errors import DivergenceWarning, ThermoseedError
 from .files import json_scalar, read_record, write_record
 from .linalg import entropy_of_spectrum, von_neumann_entropy
 from .optim import SOLVERS, Callback, minimize
 from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
+from .records import BasisCounts, PauliShots, from_records, is_records_file
+from .shadows import MomentEstimates
+from .uncertainty import coefficient_covariance, log_partition_hessian
 
 #: |theta| entries above this mean weights e^{-|theta|} below ~1e-11: the fit is chasing a
 #: rank-deficient target and the coefficients have no finite optimum (use l2 > 0).
@@ -39,6 +49,12 @@ RANK_FLOOR = 1e-10
 #: |theta| -> inf); low-temperature thermal data match their tiny weights at finite theta.
 NULL_EXCESS = 1e3
 RANK_DEFICIENT_COEF = 5.0
+#: With noisy moments the fit stops at |grad| <= max(tol, NOISE_TOL_FRACTION * min SE_j):
+#: every residual is then below 1% of its standard error.
+NOISE_TOL_FRACTION = 1e-2
+#: Fitted arrays saved in model files beside ``coef`` (present when the data carried errors).
+NOISE_ARRAYS = {"target_stderr": "target_stderr_", "moment_zscores": "moment_zscores_",
+                "coef_stderr": "coef_stderr_", "coef_covariance": "coef_covariance_"}
 
 
 class VisibleGibbsModel(ParamsMixin):
@@ -46,12 +62,18 @@ class VisibleGibbsModel(ParamsMixin):
 
     Parameters:
         terms: the ``TermSet`` (or list of labels) spanning H.
-        solver: ``"lbfgs"`` (exact gradient, default) or ``"adam"`` (noisy moments).
+        solver: ``"lbfgs"`` (exact gradient, default) or ``"adam"``. With measurement records
+            either works on the (deterministic) estimated moments; noisy moments can fall
+            where no finite theta reaches them: then use ``l2 > 0`` (the covariance of theta
+            accounts for the penalty).
         l2: L2 penalty strength ``lam`` in ``(lam/2)|theta|^2``.
         tol: stop when the gradient norm is at most ``tol``.
         max_iter: iteration cap.
         learning_rate: Adam step size.
-        engine: Gibbs engine name (``"dense"``).
+        engine: ``"auto"`` (dense up to ``engines.AUTO_DENSE_MAX_QUBITS`` qubits, typicality
+            above), ``"dense"``, ``"typicality"``, or a dict ``{"name": ..., **options}``
+            (e.g. ``{"name": "typicality", "vectors": 16}``); a stochastic engine's random
+            vectors take ``seed`` unless the options give one.
         init_scale: standard deviation of the random initial coefficients (0 = start at 0).
         seed: seed for the initial coefficients.
         progress: show a progress bar on stderr.
@@ -60,8 +82,13 @@ class VisibleGibbsModel(ParamsMixin):
     Attributes:
         coef_: fitted coefficients theta.
         target_moments_: data moments m.
-        data_entropy_: S(rho) in nats.
-        loss_: final S(rho||sigma) (without the penalty).
+        data_entropy_: S(rho) in nats (nan for moment data such as records).
+        loss_: final S(rho||sigma) (without the penalty); for moment data the cross entropy
+            ``theta.m + log Z``.
+        target_stderr_, moment_zscores_: (moment data) standard errors of m and the fit's
+            residuals ``(m_j - <P_j>_sigma) / SE_j``.
+        coef_covariance_, coef_stderr_: (moment data, ``coef_errors=True``) Cov(theta) from
+            the moment noise (plus the engine's own, for typicality) and its diagonal's root.
         grad_norm_: final gradient norm (with the penalty).
         n_iter_: iterations used. converged_: whether ``grad_norm_ <= tol``.
         history_: dict of per-iteration ``loss`` and ``grad_norm`` lists.
@@ -85,7 +112,7 @@ class VisibleGibbsModel(ParamsMixin):
         tol: float = 1e-6,
         max_iter: int = 500,
         learning_rate: float = 0.05,
-        engine: str = "dense",
+        engine: str | dict = "auto",
         init_scale: float = 0.0,
         seed: int | None = 0,
         progress: bool = False,
@@ -118,40 +145,92 @@ class VisibleGibbsModel(ParamsMixin):
             raise ThermoseedError(f"tol must be > 0, got {self.tol!r}")
         if int(self.max_iter) < 1:
             raise ThermoseedError(f"max_iter must be >= 1, got {self.max_iter!r}")
+        self._engine_spec()
+
+    def _engine_spec(self) -> tuple[str, dict]:
+        """``(name, options)`` from ``engine`` (a name or ``{"name": ..., **options}``)."""
+        spec = self.engine
+        if isinstance(spec, dict):
+            if not isinstance(spec.get("name"), str):
+                raise ThermoseedError(f"engine dict {spec!r} needs a 'name', e.g. "
+                                      "{'name': 'typicality', 'vectors': 16}")
+            options = {k: v for k, v in spec.items() if k != "name"}
+            return spec["name"], options
+        if not isinstance(spec, str):
+            raise ThermoseedError(f"engine must be a name or a dict, got {spec!r}")
+        return spec, {}
+
+    def _make_engine(self, terms: TermSet) -> GibbsEngine:
+        name, options = self._engine_spec()
+        cls = ENGINES[choose_engine(name, terms.n_qubits)]
+        if getattr(cls, "stochastic", False):
+            options.setdefault("seed", 0 if self.seed is None else self.seed)
+        return make_engine(name, terms, **options)
 
     def loss_and_grad(self, theta: np.ndarray, moments: np.ndarray, data_entropy: float):
         """``(L(theta), dL/dtheta)`` for target moments ``m`` (penalty included)."""
         if not hasattr(self, "_engine"):
-            self._engine = make_engine(self.engine, self._term_set())
+            self._engine = self._make_engine(self._term_set())
         ev = self._engine.evaluate(theta)
+        self._last_evaluation = (np.array(theta, dtype=float), ev)
         loss = -data_entropy + float(theta @ moments) + ev.log_z
         loss += 0.5 * self.l2 * float(theta @ theta)
         return loss, moments - ev.moments + self.l2 * theta
 
-    def fit(self, data, *, callback: Callback | None = None, kind: str | None = None):
-        """Fit to training data (anything ``as_training_data`` accepts) and return self.
+    def _moment_estimates(self, data, terms: TermSet) -> MomentEstimates | None:
+        """The data as moments with errors (records, estimates), or None for states."""
+        if isinstance(data, (str, Path)) and is_records_file(data):
+            data = from_records(data, terms)
+        elif isinstance(data, (PauliShots, BasisCounts)):
+            data = from_records(data, terms)
+        if not isinstance(data, MomentEstimates):
+            return None
+        if data.terms != terms:
+            raise ThermoseedError(
+                "the moment estimates were made for another term set "
+                f"({len(data.terms)} terms on {data.n_qubits} qubits); estimate them for the "
+                "model's terms: from_records(records, model.terms)")
+        return data
 
-        A square 2-D array is read as one density matrix when Hermitian, else as a batch of
-        state vectors (``square_array_kind``); pass ``kind`` to say which explicitly.
+    def fit(self, data, *, callback: Callback | None = None, kind: str | None = None,
+            coef_errors: bool = True):
+        """Fit to training data and return self.
+
+        ``data``: anything ``as_training_data`` accepts, measurement records (``PauliShots``,
+        ``BasisCounts`` or a records file; estimated with ``from_records`` defaults) or
+        ``MomentEstimates``. A square 2-D array is read as one density matrix when Hermitian,
+        else as a batch of state vectors (``square_array_kind``); ``kind`` says which.
+        ``coef_errors``: with moment data, compute ``coef_covariance_``/``coef_stderr_``
+        (exact on the dense engine; on typicality ``len(terms) + 1`` evaluations with its
+        symmetric estimator, about a third of a fit evaluation each).
         """
         self._check_settings()
+        self.__dict__.pop("_last_evaluation", None)
         terms = self._term_set()
-        if kind is None:
-            kind = square_array_kind(data)
-        td: TrainingData = as_training_data(data, kind=kind)
-        check_qubits(td.n_qubits, terms)
-        self._engine = make_engine(self.engine, terms)
-        moments = td.moments(terms)
-        data_vals, data_vecs = np.linalg.eigh(td.rho)  # one decomposition: entropy + rank
-        entropy = entropy_of_spectrum(data_vals)
-        rank_deficient = data_vals.min() < RANK_FLOOR
+        estimates = self._moment_estimates(data, terms)
+        tol = self.tol
+        if estimates is None:
+            if kind is None:
+                kind = square_array_kind(data)
+            td: TrainingData = as_training_data(data, kind=kind)
+            check_qubits(td.n_qubits, terms)
+            moments = td.moments(terms)
+            data_vals, data_vecs = np.linalg.eigh(td.rho)  # one decomposition: entropy + rank
+            entropy = entropy_of_spectrum(data_vals)
+            rank_deficient = data_vals.min() < RANK_FLOOR
+        else:
+            moments, entropy, rank_deficient = estimates.values.copy(), 0.0, False
+            positive = estimates.stderr[estimates.stderr > 0]
+            if positive.size:
+                tol = max(tol, NOISE_TOL_FRACTION * float(positive.min()))
+        self._engine = engine = self._make_engine(terms)
         rng = np.random.default_rng(self.seed)
         theta0 = self.init_scale * rng.standard_normal(len(terms))
         result = minimize(
             lambda th: self.loss_and_grad(th, moments, entropy),
             theta0,
             solver=self.solver,
-            tol=self.tol,
+            tol=tol,
             max_iter=int(self.max_iter),
             learning_rate=self.learning_rate,
             callback=callback,
@@ -161,31 +240,58 @@ class VisibleGibbsModel(ParamsMixin):
         self.terms_ = terms
         self.coef_ = result.x
         self.target_moments_ = moments
-        self.data_entropy_ = entropy
+        self.data_entropy_ = entropy if estimates is None else float("nan")
         self.loss_ = result.loss - 0.5 * self.l2 * float(result.x @ result.x)
         self.grad_norm_ = result.grad_norm
         self.n_iter_ = result.n_iter
         self.converged_ = result.converged
         self.history_ = result.history
+        if estimates is not None:
+            seen, final = getattr(self, "_last_evaluation", (None, None))
+            if not np.array_equal(seen, result.x):
+                final = engine.evaluate(result.x)
+            self._noise_report(estimates, final, coef_errors)
         largest = float(np.abs(self.coef_).max())
         suspect = False
-        if rank_deficient and self.l2 == 0:
+        if rank_deficient and self.l2 == 0 and getattr(engine, "stochastic", False):
+            suspect = not self.converged_  # no sigma to inspect the null space with
+        elif rank_deficient and self.l2 == 0:
             vals, vecs = data_vals, data_vecs
             null = vals < RANK_FLOOR
-            sigma = self._engine.evaluate(self.coef_, want_state=True).state
+            sigma = engine.evaluate(self.coef_, want_state=True).state
             model_null = np.einsum("ai,ab,bi->", vecs[:, null].conj(), sigma, vecs[:, null]).real
             data_null = float(np.clip(vals[null], 0.0, None).sum())
             suspect = (not self.converged_) or (
                 largest > RANK_DEFICIENT_COEF and model_null > NULL_EXCESS * data_null)
         if largest > DIVERGENCE_COEF or suspect:
+            why = ("the data are (near) rank-deficient and a Gibbs state is full rank" if
+                   estimates is None else "the noisy moments may lie where no Gibbs state of "
+                   "these terms reaches (too few shots for near-pure data)")
             warnings.warn(
                 f"coefficients are diverging (largest |theta| = {largest:.3g}, converged = "
-                f"{self.converged_}): the data are (near) rank-deficient and a Gibbs state is "
-                "full rank, so the optimum lies at infinity; set l2 > 0 (e.g. 1e-3)",
+                f"{self.converged_}): {why}, so the optimum lies at infinity; set l2 > 0 "
+                "(e.g. 1e-3)",
                 DivergenceWarning,
                 stacklevel=2,
             )
         return self
+
+    def _noise_report(self, estimates: MomentEstimates, final, coef_errors: bool) -> None:
+        """Residuals in standard errors and, if asked, Cov(theta) (module docstring)."""
+        self.target_stderr_ = estimates.stderr
+        self.moment_zscores_ = estimates.zscores(final.moments)
+        if not coef_errors:
+            return
+        cov_m = estimates.covariance
+        engine_cov = getattr(final, "moment_covariance", None)
+        if engine_cov is not None:  # the engine's own statistical error moves theta too
+            cov_m = cov_m + engine_cov
+        engine, base = self._engine, final
+        if hasattr(engine, "with_estimator"):  # differences need no gradient: the cheap one
+            engine, base = engine.with_estimator("symmetric"), None
+        hessian = log_partition_hessian(engine, self.coef_, base)
+        self.coef_covariance_ = coefficient_covariance(hessian, cov_m, self.l2)
+        self.coef_stderr_ = np.sqrt(np.clip(np.diag(self.coef_covariance_), 0.0, None))
 
     @classmethod
     def from_coefficients(cls, terms, coef, **params) -> VisibleGibbsModel:
@@ -199,10 +305,16 @@ class VisibleGibbsModel(ParamsMixin):
     def evaluate(self, want_state: bool = False):
         """One engine evaluation at ``coef_``: ``GibbsEvaluation(log_z, moments, energies,
         state)`` (``state`` only when asked). Callers needing several of these take them all
-        from one call: each call is one eigendecomposition on the dense engine."""
+        from one call: each call is one eigendecomposition on the dense engine. A state asked
+        of a model fitted with a stochastic engine comes from the dense engine (exact sigma at
+        ``coef_``) while n allows it."""
         check_is_fitted(self, "coef_")
         if not hasattr(self, "_engine"):
-            self._engine = make_engine(self.engine, self.terms_)
+            self._engine = self._make_engine(self.terms_)
+        dense = ENGINES["dense"]
+        if want_state and getattr(self._engine, "stochastic", False) and \
+                self.terms_.n_qubits <= dense.max_qubits:
+            return dense(self.terms_).evaluate(self.coef_, want_state=True)
         return self._engine.evaluate(self.coef_, want_state=want_state)
 
     def hamiltonian(self) -> np.ndarray:
@@ -223,8 +335,9 @@ class VisibleGibbsModel(ParamsMixin):
         return self.evaluate().log_z
 
     def spectrum(self) -> np.ndarray:
-        """Eigenvalues of H(theta), ascending."""
-        return self.evaluate().energies
+        """Eigenvalues of H(theta), ascending (from the dense engine, n <= 14)."""
+        energies = self.evaluate().energies
+        return self.evaluate(want_state=True).energies if energies is None else energies
 
     def relative_entropy(self, rho) -> float:
         """``S(rho||sigma) = -S(rho) + Tr(rho H) + log Z`` for any density matrix rho."""
@@ -264,6 +377,9 @@ def save_model(model, path) -> Path:
     if hasattr(model, "history_"):
         arrays["history_loss"] = np.asarray(model.history_["loss"], float)
         arrays["history_grad_norm"] = np.asarray(model.history_["grad_norm"], float)
+    for key, attr in NOISE_ARRAYS.items():
+        if hasattr(model, attr):
+            arrays[key] = np.asarray(getattr(model, attr), float)
     return write_record(path, MODEL_KIND, header, arrays)
 
 
@@ -288,4 +404,7 @@ def load_model(path):
                                   "'history_grad_norm'")
         model.history_ = {"loss": arrays["history_loss"].tolist(),
                           "grad_norm": arrays["history_grad_norm"].tolist()}
+    for key, attr in NOISE_ARRAYS.items():
+        if key in arrays:
+            setattr(model, attr, arrays[key])
     return model

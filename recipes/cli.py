@@ -123,17 +123,41 @@ def _say(args, message: str) -> None:
 
 
 def _cmd_fit(args) -> int:
-    from thermoseed.pretrain import VisibleGibbsModel, graph_terms, load_training_data
+    from thermoseed.pretrain import (
+        VisibleGibbsModel,
+        graph_terms,
+        is_records_file,
+        load_records,
+        load_training_data,
+    )
 
-    data = load_training_data(args.data, kind=args.kind, renormalize=args.renormalize)
+    records = is_records_file(args.data)
+    data = load_records(args.data) if records else load_training_data(
+        args.data, kind=args.kind, renormalize=args.renormalize)
     terms = graph_terms(data.n_qubits, args.graph, fields=args.fields,
                         couplings=args.couplings, extra=args.extra, shape=args.shape,
                         edges=args.edges, parity=args.parity)
     model = VisibleGibbsModel(terms, solver=args.solver, l2=args.l2, tol=args.tol,
                               max_iter=args.max_iter, seed=args.seed,
+                              engine="auto" if records else "dense",
                               progress=not args.quiet, checkpoint=args.checkpoint)
     model.fit(data)
     path = model.save(args.out)
+    if records:
+        worst = float(abs(model.moment_zscores_).max())
+        summary = {"model": str(path), "n_qubits": data.n_qubits, "terms": len(terms),
+                   "shots": data.n_shots, "cross_entropy": model.loss_,
+                   "max_abs_residual_in_stderr": worst,
+                   "max_coef_stderr": float(model.coef_stderr_.max()),
+                   "grad_norm": model.grad_norm_, "iterations": model.n_iter_,
+                   "converged": bool(model.converged_)}
+        _say(args, f"fit from {data.n_shots} shots: largest moment residual {worst:.2g} "
+                   f"standard errors, coefficient errors up to "
+                   f"{summary['max_coef_stderr']:.3g}; {model.n_iter_} iterations, "
+                   f"{'converged' if model.converged_ else 'NOT converged (raise --max-iter)'}"
+                   f"; {len(terms)} terms -> {path}")
+        print(_json(summary))
+        return 0
     from thermoseed.pretrain import fidelity, trace_distance
 
     sigma = model.state()
@@ -298,7 +322,8 @@ def build_parser() -> argparse.ArgumentParser:
         epilog="examples:\n  thermoseed fit states.npz --out model.npz\n"
                "  thermoseed fit states.npz --graph grid --shape 2x3 --fields XYZ "
                "--couplings ZZ,XX,YY --l2 1e-3 --out model.npz")
-    p.add_argument("data", help=".npy/.npz training data (README schema)")
+    p.add_argument("data", help=".npy/.npz training data (README schema) or a measurement "
+                                "records file")
     p.add_argument("--out", required=True, help="model file to write (.npz)")
     p.add_argument("--kind", choices=["states", "density"], help="for ambiguous .npy arrays")
     p.add_argument("--renormalize", action="store_true", help="renormalise traces/norms")

@@ -507,3 +507,20 @@ def test_cli_messages_name_cli_options_and_warnings_are_one_line(tmp_path, capsy
     warned = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
     assert warned and all(line.startswith("thermoseed: warning: ") for line in warned)
     assert not any(".py" in line for line in warned)
+
+
+def test_fit_reads_a_measurement_records_file(tmp_path, capsys):
+    """`thermoseed fit records.npz`: classical-shadow moments with standard errors; the model
+    file carries a standard error per coefficient."""
+    from thermoseed.pretrain import load_model, save_records, simulate_shots
+
+    psi = np.zeros(8, dtype=complex)
+    psi[[0, 7]] = 1 / np.sqrt(2)
+    save_records(tmp_path / "rec.npz", simulate_shots(psi, 4000, seed=1))
+    assert main(["fit", str(tmp_path / "rec.npz"), "--out", str(tmp_path / "m.npz")]) == 0
+    captured = capsys.readouterr()
+    assert "fit from 4000 shots" in captured.err
+    out = json.loads(captured.out)
+    assert out["shots"] == 4000 and out["max_coef_stderr"] > 0
+    model = load_model(tmp_path / "m.npz")
+    assert model.coef_stderr_.shape == model.coef_.shape
