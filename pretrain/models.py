@@ -15,6 +15,7 @@ reports the residuals ``(m_j - <P_j>_sigma) / SE_j`` and propagates the noise in
 
 from __future__ import annotations
 
+import hashlib
 import warnings
 from pathlib import Path
 
@@ -147,6 +148,17 @@ class VisibleGibbsModel(ParamsMixin):
             raise ThermoseedError(f"max_iter must be >= 1, got {self.max_iter!r}")
         self._engine_spec()
 
+    def _fingerprint(self, terms: TermSet, moments: np.ndarray) -> str:
+        """sha256 of what a checkpoint is of: term labels, target moments, hyperparameters
+        (not the path, the progress bar, or the stopping rule: resuming with a higher
+        max_iter or another tol is what checkpoints are for)."""
+        digest = hashlib.sha256("|".join(terms.labels).encode())
+        digest.update(np.ascontiguousarray(moments, dtype=float).tobytes())
+        params = {k: v for k, v in self.get_params().items()
+                  if k not in ("terms", "checkpoint", "progress", "max_iter", "tol")}
+        digest.update(repr(sorted(params.items(), key=str)).encode())
+        return digest.hexdigest()[:16]
+
     def _engine_spec(self) -> tuple[str, dict]:
         """``(name, options)`` from ``engine`` (a name or ``{"name": ..., **options}``)."""
         spec = self.engine
@@ -236,6 +248,7 @@ class VisibleGibbsModel(ParamsMixin):
             callback=callback,
             progress=self.progress,
             checkpoint=self.checkpoint,
+            fingerprint=self._fingerprint(terms, moments) if self.checkpoint else "",
         )
         self.terms_ = terms
         self.coef_ = result.x

@@ -102,8 +102,10 @@ class FitResult(NamedTuple):
 class _Recorder:
     """Keeps history, drives the progress bar and callback, writes checkpoints."""
 
-    def __init__(self, callback, progress, max_iter, checkpoint, checkpoint_every, history, step):
+    def __init__(self, callback, progress, max_iter, checkpoint, checkpoint_every, history, step,
+                 fingerprint: str = ""):
         self.callback = callback
+        self.fingerprint = fingerprint
         self.history = history
         self.step = step
         self.checkpoint = checkpoint
@@ -122,7 +124,8 @@ class _Recorder:
         self.bar.update(1)
         self.bar.set_postfix(loss=f"{loss:.3e}", grad=f"{gnorm:.1e}", refresh=False)
         if self.checkpoint is not None and self.step % self.checkpoint_every == 0:
-            save_checkpoint(self.checkpoint, x, self.step, self.history, extra or {})
+            save_checkpoint(self.checkpoint, x, self.step, self.history, extra or {},
+                            self.fingerprint)
         stop = self.callback(self.step, x, float(loss), grad) if self.callback else False
         self.stopped_by_callback = bool(stop)
         return bool(stop)
@@ -131,9 +134,12 @@ class _Recorder:
         self.bar.close()
 
 
-def save_checkpoint(path, x, step, history, extra: dict[str, np.ndarray]) -> None:
-    """Write iterate, step count, history and optimiser state atomically."""
+def save_checkpoint(path, x, step, history, extra: dict[str, np.ndarray],
+                    fingerprint: str = "") -> None:
+    """Write iterate, step count, history, optimiser state and the fit's ``fingerprint``
+    (what the fit is of: data, terms, settings) atomically."""
     arrays = {
+        "fingerprint": np.array(fingerprint),
         "x": np.asarray(x, float),
         "step": np.array(step),
         "history_loss": np.asarray(history["loss"], float),
@@ -143,8 +149,11 @@ def save_checkpoint(path, x, step, history, extra: dict[str, np.ndarray]) -> Non
     atomic_save_npz(path, arrays)
 
 
-def load_checkpoint(path, size: int) -> tuple[np.ndarray, int, dict, dict]:
-    """Read a checkpoint written by ``save_checkpoint``; checks the iterate size."""
+def load_checkpoint(path, size: int, fingerprint: str | None = None
+                    ) -> tuple[np.ndarray, int, dict, dict]:
+    """Read a checkpoint written by ``save_checkpoint``; checks the iterate size and, given a
+    ``fingerprint``, that the checkpoint was written by a fit of the same one (a checkpoint
+    of other data or settings with the same number of terms used to be resumed silently)."""
     arrays = load_npz(path, what="checkpoint")
     try:
         x = arrays["x"]
@@ -158,6 +167,11 @@ def load_checkpoint(path, size: int) -> tuple[np.ndarray, int, dict, dict]:
             f"checkpoint {str(path)!r} holds {x.size} parameters but the fit has {size}; "
             "delete the checkpoint or point to the right one"
         )
+    stored = str(arrays["fingerprint"]) if "fingerprint" in arrays else None
+    if fingerprint is not None and stored != fingerprint:
+        raise ThermoseedError(
+            f"checkpoint {str(path)!r} was written by a fit of other data, terms or settings; "
+            "delete it (or pass another --checkpoint) to start this fit afresh")
     extra = {k[4:]: v for k, v in arrays.items() if k.startswith("opt_")}
     return x, step, history, extra
 
@@ -174,11 +188,13 @@ def minimize(
     progress: bool = False,
     checkpoint: str | Path | None = None,
     checkpoint_every: int = 25,
+    fingerprint: str = "",
 ) -> FitResult:
     """Minimise until ``|grad| <= tol`` or ``max_iter`` iterations.
 
     With ``checkpoint`` set, state is saved every ``checkpoint_every`` iterations and an
-    existing checkpoint is resumed from (L-BFGS restarts its curvature memory on resume).
+    existing checkpoint is resumed from (L-BFGS restarts its curvature memory on resume),
+    only when it carries the same ``fingerprint`` (what the caller says the fit is of).
     """
     if solver not in SOLVERS:
         raise ThermoseedError(f"unknown solver {solver!r}; choose one of {SOLVERS}")
@@ -187,8 +203,9 @@ def minimize(
     step = 0
     extra: dict[str, np.ndarray] = {}
     if checkpoint is not None and Path(checkpoint).exists():
-        x, step, history, extra = load_checkpoint(checkpoint, x.size)
-    rec = _Recorder(callback, progress, max_iter, checkpoint, checkpoint_every, history, step)
+        x, step, history, extra = load_checkpoint(checkpoint, x.size, fingerprint)
+    rec = _Recorder(callback, progress, max_iter, checkpoint, checkpoint_every, history, step,
+                    fingerprint)
     try:
         if solver == "adam":
             x = _run_adam(loss_and_grad, x, rec, tol, max_iter, learning_rate, extra)
@@ -208,7 +225,8 @@ def minimize(
             stacklevel=3,
         )
     if checkpoint is not None:
-        save_checkpoint(checkpoint, x, rec.step, rec.history, rec.last_extra or extra)
+        save_checkpoint(checkpoint, x, rec.step, rec.history, rec.last_extra or extra,
+                        fingerprint)
     return FitResult(x, float(loss), gnorm, rec.step, converged, rec.history)
 
 

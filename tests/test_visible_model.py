@@ -324,3 +324,19 @@ def test_callback_stops_early(solver, helpers):
     assert model.n_iter_ == 3 and not model.converged_
     assert [c[1] for c in calls] == model.history_["loss"]
     assert [c[2] for c in calls] == model.history_["grad_norm"]
+
+
+def test_checkpoint_of_other_data_refused(tmp_path, helpers):
+    """Fit on data A with a checkpoint, then on data B (same term count) with the same file:
+    refused with one line (it used to return A's coefficients, 'iterations: 3')."""
+    rng = np.random.default_rng(93)
+    terms = graph_terms(3, "line")
+    ck = tmp_path / "ck.npz"
+    _quiet_fit(VisibleGibbsModel(terms, max_iter=3, checkpoint=str(ck)),
+               helpers.random_density(8, rng))
+    with pytest.raises(ThermoseedError, match="other data, terms or settings"):
+        VisibleGibbsModel(terms, max_iter=3, checkpoint=str(ck)).fit(
+            helpers.random_density(8, rng))
+    with pytest.raises(ThermoseedError, match="other data, terms or settings"):
+        VisibleGibbsModel(terms, l2=0.5, max_iter=3, checkpoint=str(ck)).fit(
+            helpers.random_density(8, np.random.default_rng(93)))
