@@ -3,10 +3,10 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    lazy -> errors -> checks -> _base -> files -> linalg -> paulis -> data -> shadows ->
-    records -> uncertainty -> labelled -> engines -> optim -> models -> measurements ->
-    classifier -> term_growth -> diagnostics -> frechet -> hidden_layout -> hidden_engines ->
-    hidden -> hidden_diagnostics
+    lazy -> errors -> checks -> _base -> files -> linalg -> frechet -> paulis -> data ->
+    shadows -> records -> uncertainty -> labelled -> engines -> optim -> models ->
+    measurements -> classifier -> term_growth -> diagnostics -> hidden_layout ->
+    hidden_engines -> hidden -> hidden_diagnostics
 """
 
 from thermoseed.pretrain.lazy import lazy_exports

@@ -26,6 +26,7 @@ import warnings
 import numpy as np
 
 from .errors import ConvergenceWarning
+from .frechet import exp_divided_differences
 from .paulis import TermSet
 
 #: Forward-difference step for the Hessian (error O(h) relative, round-off ~1e-12/h).
@@ -37,15 +38,6 @@ BLOCK_BYTES = 1 << 28
 SINGULAR_RTOL = 1e-10
 
 
-def _divided_weights(energies: np.ndarray, log_z: float) -> np.ndarray:
-    """``K_ab = max(p_a, p_b) * g(|E_a - E_b|)``, ``g(t) = -expm1(-t) / t``, ``g(0) = 1``."""
-    p = np.exp(-energies - log_z)
-    gap = np.abs(energies[:, None] - energies[None, :])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        g = np.where(gap > 1e-300, -np.expm1(-gap) / gap, 1.0)
-    return np.maximum(p[:, None], p[None, :]) * g
-
-
 def kubo_mori_hessian(energies: np.ndarray, vectors: np.ndarray, log_z: float,
                       moments: np.ndarray, terms: TermSet) -> np.ndarray:
     """Exact ``F = d^2 log Z / d theta^2`` from the eigendecomposition of H (formula above);
@@ -55,7 +47,9 @@ def kubo_mori_hessian(energies: np.ndarray, vectors: np.ndarray, log_z: float,
     real = np.isrealobj(vectors) and terms.is_real
     dtype = float if real else complex
     v = vectors.astype(dtype, copy=False)
-    weights = _divided_weights(np.asarray(energies, float), log_z)
+    # Kubo-Mori weights max(p_a, p_b) (1 - e^{-|E_a - E_b|}) / |E_a - E_b|: the divided
+    # differences of exp at l = -E - log Z
+    weights = exp_divided_differences(-np.asarray(energies, float) - log_z)
     m = len(terms)
     images = np.empty((m, d, d), dtype=dtype) if m * d * d * 16 <= 4 * BLOCK_BYTES else None
     rows = max(1, int(BLOCK_BYTES // (m * d * 16)))
