@@ -6,7 +6,7 @@ gradient probes, statistics, sweeps, reports). It imports ``thermoseed.pretrain`
 ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    templates -> ansatz -> circuits -> latent -> compile -> readout -> compile_record ->
+    gate_sweep -> templates -> ansatz -> circuits -> latent -> compile -> readout -> compile_record ->
     warm_starts -> classifier -> eigensolver -> plateau.gradients -> plateau.strategies ->
     plateau.probes -> plateau.stats -> plateau.sweep -> plateau.report
 """

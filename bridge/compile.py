@@ -42,6 +42,13 @@ from thermoseed.pretrain.linalg import (
 from thermoseed.pretrain.optim import minimize
 
 FORMS = ("latent", "purified")
+#: Width of the first restart's uniform starting angles ``[0, SMALL_START)``, near the
+#: template's all-zero point (the others start on ``[0, init_scale)``). Measured on a
+#: low-temperature transverse-field Ising model (n = 8, 'strong' template, 16 layers, 300
+#: L-BFGS iterations): S = 0.55 from [0, 0.1) against 1.57 from [0, 2 pi), where gradients
+#: are exponentially small (barren plateau); a small n = 3, k = 2 case does better from
+#: [0, 2 pi), hence one start of each kind.
+SMALL_START = 0.1
 
 
 class CompileReport(NamedTuple):
@@ -182,12 +189,16 @@ def _check_model(model, ansatz: Ansatz, n_wires: int):
     return n
 
 
-def _restart_inits(ansatz: Ansatz, extra: int, restarts: int, seed: int, init_scale: float):
+def _restart_inits(ansatz: Ansatz, extra: int, restarts: int, seed: int, init_scale: float,
+                   small_start: bool = False):
+    """Seeded starts: uniform on ``[0, init_scale)``, the first on ``[0, SMALL_START)``
+    when ``small_start``; ``extra`` trailing zeros (latent logits)."""
     if restarts < 1:
         raise ThermoseedError(f"restarts must be >= 1, got {restarts}")
-    for child in np.random.SeedSequence(seed).spawn(restarts):
+    for i, child in enumerate(np.random.SeedSequence(seed).spawn(restarts)):
         rng = np.random.default_rng(child)
-        yield np.concatenate([rng.uniform(0, init_scale, ansatz.n_params), np.zeros(extra)])
+        scale = SMALL_START if small_start and i == 0 else init_scale
+        yield np.concatenate([rng.uniform(0, scale, ansatz.n_params), np.zeros(extra)])
 
 
 def _optimise(objective, inits, *, max_iter, tol, progress, desc):
@@ -244,8 +255,8 @@ def _report(compiled: np.ndarray, objective: float, floor: float, converged: boo
 def compile_latent(
     model, ansatz: Ansatz, *, latent: str = "spectrum", k: int | None = None,
     weight: float = 0.999, restarts: int = 3, seed: int = 0, max_iter: int = 300,
-    tol: float = 1e-6, init_scale: float = 2 * np.pi, data=None, progress: bool = False,
-    class_data=None, readout: int = 0,
+    tol: float = 1e-6, init_scale: float = 2 * np.pi, small_start: bool = True, data=None,
+    progress: bool = False, class_data=None, readout: int = 0,
 ) -> CompileResult:
     """Latent-form compile of a fitted model into ``ansatz`` (see module docstring).
 
@@ -254,7 +265,8 @@ def compile_latent(
     eigenvector is then placed on a basis state whose ``readout`` bit is the class that holds
     more (class-balanced) weight on it, so a classifier reading that wire starts on the
     labels' side instead of an arbitrary one (``labelled_order``).
-    Restarts start from uniform parameters on ``[0, init_scale)``; the best is kept.
+    Restarts start from uniform parameters on ``[0, init_scale)``, the first one on
+    ``[0, SMALL_START)`` near the template's zero point when ``small_start``; the best is kept.
     """
     if latent not in LATENT_KINDS:
         raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
@@ -297,7 +309,8 @@ def compile_latent(
 
         extra, floor = n, 0.0
 
-    best = _optimise(objective, _restart_inits(ansatz, extra, restarts, seed, init_scale),
+    best = _optimise(objective,
+                     _restart_inits(ansatz, extra, restarts, seed, init_scale, small_start),
                      max_iter=max_iter, tol=tol, progress=progress, desc="compile")
     params = best.x[:npar].reshape(ansatz.shape)
     if latent == "product":

@@ -1,21 +1,23 @@
 """The built-in template registry and the tensor kernels that apply gates to a block of states.
 
 One registry, ``TEMPLATES``: name -> ``Template`` holding the PennyLane quantum function, the
-parameter shape ``(n_layers, n_wires) -> shape``, the fast tensor form, the minimum wire count
-and whether all-zero parameters give exactly the identity.
+parameter shape ``(n_layers, n_wires) -> shape``, the gate list of the fast form, the minimum
+wire count and whether all-zero parameters give exactly the identity.
 
-Fast tensor form: a block ``S`` (d x k, d = 2^n) is kept as a (d, k) array whose row index
-carries the wires, wire 0 = most significant bit. A one-wire gate ``m`` on wire ``w`` acts on
-``S.reshape(2^w, 2, -1)`` along its middle axis; a CNOT pattern is one row permutation (its
-vector-Jacobian product is the inverse permutation, no scatter); CRX acts on the control-1
-half. No circuit is built per evaluation; every template is checked against ``qml.matrix``
-in the tests, and the same kernels run the user's circuits in ``bridge.ansatz``.
+Fast form: a block ``S`` (d x k, d = 2^n) is kept as a (d, k) array whose row index carries
+the wires, wire 0 = most significant bit. A built-in is a list of gates (one-wire rotation
+products, controlled one-wire rotations, CNOT patterns as one row permutation) run by
+``bridge.gate_sweep``, whose gradient is one backward pass over the list. No circuit is built
+per evaluation; every template is checked against ``qml.matrix`` in the tests. The kernels
+below (one-wire and q-wire products, row permutations, all autograd-differentiable) run the
+user's recorded circuits in ``bridge.ansatz``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from functools import lru_cache, partial
 from types import MappingProxyType
 
 import autograd.numpy as anp
@@ -23,54 +25,21 @@ import numpy as np
 import pennylane as qml
 from autograd.extend import defvjp, primitive
 
+from thermoseed.bridge.gate_sweep import (
+    Permutation,
+    WireGate,
+    apply_gates,
+    permutation,
+    rotation_chain,
+)
+
 # ------------------------------------------------------------------------- tensor kernels
-
-
-def _stack2(a, b, c, d):
-    """(m, 2, 2) stack of 2x2 matrices [[a, b], [c, d]] from length-m vectors."""
-    return anp.stack([anp.stack([a, b], axis=-1), anp.stack([c, d], axis=-1)], axis=-2)
-
-
-def ry_matrices(t):
-    """``RY(t) = [[cos t/2, -sin t/2], [sin t/2, cos t/2]]`` for each entry of ``t``."""
-    c, s = anp.cos(t / 2) + 0j, anp.sin(t / 2) + 0j
-    return _stack2(c, -s, s, c)
-
-
-def rz_matrices(t):
-    """``RZ(t) = diag(e^{-it/2}, e^{it/2})`` for each entry of ``t``."""
-    e = anp.exp(-0.5j * t)
-    zero = 0.0 * e
-    return _stack2(e, zero, zero, anp.conj(e))
-
-
-def rx_matrices(t):
-    """``RX(t) = [[cos t/2, -i sin t/2], [-i sin t/2, cos t/2]]`` for each entry of ``t``."""
-    c, s = anp.cos(t / 2) + 0j, -1j * anp.sin(t / 2)
-    return _stack2(c, s, s, c)
-
-
-def rot_matrices(phi, theta, omega):
-    """PennyLane ``Rot(phi, theta, omega) = RZ(omega) RY(theta) RZ(phi)``, vectorised."""
-    c, s = anp.cos(theta / 2), anp.sin(theta / 2)
-    plus, minus = 0.5 * (phi + omega), 0.5 * (phi - omega)
-    return _stack2(anp.exp(-1j * plus) * c, -anp.exp(1j * minus) * s,
-                   anp.exp(-1j * minus) * s, anp.exp(1j * plus) * c)
 
 
 def apply_1q(block, mat, wire: int):
     """``(I (x) mat on wire (x) I) @ block`` for a (d, k) block: one batched 2x2 product."""
     shape = block.shape
     return anp.reshape(anp.matmul(mat, anp.reshape(block, (2**wire, 2, -1))), shape)
-
-
-def _contract_1q(block, mat, wire: int):
-    """The same product as ``apply_1q`` as one (2 x 2) @ (2 x d k / 2) contraction: slower
-    for large blocks, but the built-ins keep the rounding of their first release, so
-    compiles reproduce earlier results bit for bit."""
-    shape = block.shape
-    out = anp.tensordot(mat, anp.reshape(block, (2**wire, 2, -1)), axes=([1], [1]))
-    return anp.reshape(anp.moveaxis(out, 0, 1), shape)
 
 
 def apply_gate(block, mat, positions, n_wires: int):
@@ -100,34 +69,71 @@ def _permute_rows_vjp(ans, block, perm, phase=None):
 defvjp(permute_rows, _permute_rows_vjp)
 
 
-def _cnot_permutation(n: int, pairs) -> np.ndarray:
-    """Row-gather index ``perm``: applying the CNOTs ``(control, target)`` in order maps
-    ``block`` to ``block[perm]``."""
+@lru_cache(maxsize=256)
+def _cnot_pattern(n: int, pairs: tuple) -> Permutation:
+    """Row gather for the CNOTs ``(control, target)`` applied in order: ``block[perm]``."""
     idx = np.arange(2**n)
     perm = idx.copy()
     for control, target in pairs:
         cbit, tbit = 1 << (n - 1 - control), 1 << (n - 1 - target)
         perm = perm[np.where(idx & cbit, idx ^ tbit, idx)]
-    return perm
+    return permutation(perm)
 
 
-def _controlled_1q(block, mat, control: int, target: int):
-    """Apply ``mat`` on wire ``target > control`` where wire ``control`` is 1."""
-    k = block.shape[1]
-    halves = anp.reshape(block, (2**control, 2, -1))
-    off, on = halves[:, 0], halves[:, 1]
-    on = anp.reshape(_contract_1q(anp.reshape(on, (-1, k)), mat, target - 1), off.shape)
-    return anp.reshape(anp.stack([off, on], axis=1), (-1, k))
+def _ring(n: int) -> tuple:
+    return tuple((i, (i + 1) % n) for i in range(n))
 
 
-def _rotations(block, mats):
-    for wire in range(mats.shape[0]):
-        block = _contract_1q(block, mats[wire], wire)
-    return block
+def _wire_gates(axes: str, angles: np.ndarray, first: int, stride: int, n: int) -> list:
+    """One-wire gates ``rotation_chain(axes)`` on wires 0..n-1 of one layer; the angles of
+    wire w have flat parameter indices ``first + w * stride + (0, 1, ...)``."""
+    mats, derivs = rotation_chain(axes, angles)
+    return [WireGate(w, mats[w], derivs[w],
+                     tuple(first + w * stride + j for j in range(len(axes))))
+            for w in range(n)]
 
 
-def _ring(n: int):
-    return [(i, (i + 1) % n) for i in range(n)]
+def _strong_gates(params: np.ndarray, n: int) -> list:
+    """Rot = RZ(omega) RY(theta) RZ(phi) on every wire, then CNOTs (i, i + r mod n),
+    r = (layer mod (n - 1)) + 1."""
+    gates = []
+    for index in range(params.shape[0]):
+        gates += _wire_gates("ZYZ", params[index], index * n * 3, 3, n)
+        if n > 1:
+            r = (index % (n - 1)) + 1
+            gates.append(_cnot_pattern(n, tuple((i, (i + r) % n) for i in range(n))))
+    return gates
+
+
+def _entangler_gates(params: np.ndarray, n: int) -> list:
+    gates = []
+    for index in range(params.shape[0]):
+        gates += _wire_gates("Y", params[index][:, None], index * n, 1, n)
+        if n > 1:
+            gates.append(_cnot_pattern(n, ((0, 1),) if n == 2 else _ring(n)))
+    return gates
+
+
+def _ladder_gates(params: np.ndarray, n: int) -> list:
+    chain = tuple((i, i + 1) for i in range(n - 1))
+    gates = []
+    for index in range(params.shape[0]):
+        gates += _wire_gates("YZ", params[index], index * n * 2, 2, n)
+        gates.append(_cnot_pattern(n, chain))
+    return gates
+
+
+def _soft_gates(params: np.ndarray, n: int) -> list:
+    """RY then RZ on every wire, then CRX(t_k) on (k, k + 1) for k = 0..n-2 (the last
+    wire's third angle is unused)."""
+    gates = []
+    for index in range(params.shape[0]):
+        first = index * n * 3
+        gates += _wire_gates("YZ", params[index][:, :2], first, 3, n)
+        mats, derivs = rotation_chain("X", params[index][:, 2:3])
+        gates += [WireGate(k + 1, mats[k], derivs[k], (first + k * 3 + 2,), control=k)
+                  for k in range(n - 1)]
+    return gates
 
 
 # ------------------------------------------------------------------- quantum functions
@@ -159,37 +165,6 @@ def _soft_qfunc(params, wires):
             qml.CRX(layer[k][2], wires=[a, b])
 
 
-# ------------------------------------------------------------------ fast tensor layers
-
-
-def _strong_layer(block, layer, n, index):
-    block = _rotations(block, rot_matrices(layer[:, 0], layer[:, 1], layer[:, 2]))
-    if n == 1:
-        return block
-    r = (index % (n - 1)) + 1
-    return permute_rows(block, _cnot_permutation(n, [(i, (i + r) % n) for i in range(n)]))
-
-
-def _entangler_layer(block, layer, n, index):
-    block = _rotations(block, ry_matrices(layer))
-    if n == 1:
-        return block
-    return permute_rows(block, _cnot_permutation(n, [(0, 1)] if n == 2 else _ring(n)))
-
-
-def _ladder_layer(block, layer, n, index):
-    block = _rotations(block, anp.matmul(rz_matrices(layer[:, 1]), ry_matrices(layer[:, 0])))
-    return permute_rows(block, _cnot_permutation(n, [(i, i + 1) for i in range(n - 1)]))
-
-
-def _soft_layer(block, layer, n, index):
-    block = _rotations(block, anp.matmul(rz_matrices(layer[:, 1]), ry_matrices(layer[:, 0])))
-    crx = rx_matrices(layer[:, 2])
-    for k in range(n - 1):
-        block = _controlled_1q(block, crx[k], k, k + 1)
-    return block
-
-
 # ------------------------------------------------------------------------------ registry
 
 
@@ -201,7 +176,8 @@ class Template:
         name: registry key.
         qfunc: ``qfunc(params, wires)`` queuing the PennyLane gates.
         shape: ``shape(n_layers, n_wires)`` -> parameter shape.
-        layer: fast tensor form of one layer, ``layer(block, params[l], n_wires, l)``.
+        gates: the fast form, ``gates(params, n_wires)`` -> list of ``bridge.gate_sweep``
+            gates (parameters as a plain array).
         min_wires: fewest wires the template is defined on.
         identity_at_zero: all-zero parameters give exactly the identity.
         description: one line for listings.
@@ -210,26 +186,24 @@ class Template:
     name: str
     qfunc: Callable
     shape: Callable[[int, int], tuple[int, ...]]
-    layer: Callable
+    gates: Callable
     min_wires: int
     identity_at_zero: bool
     description: str
 
     def apply(self, params, n_wires: int, block):
-        """``U(params) @ block`` for a (2^n, k) ``block``, differentiable in ``params``."""
-        out = block + 0j
-        for index in range(params.shape[0]):
-            out = self.layer(out, params[index], n_wires, index)
-        return out
+        """``U(params) @ block`` for a (2^n, k) ``block``, differentiable in ``params`` and
+        ``block`` (one backward pass over the gate list for the gradient)."""
+        return apply_gates(params, block, partial(self.gates, n=int(n_wires)))
 
 
 TEMPLATES: MappingProxyType[str, Template] = MappingProxyType({t.name: t for t in (
-    Template("strong", _strong_qfunc, lambda layers, n: (layers, n, 3), _strong_layer, 1,
+    Template("strong", _strong_qfunc, lambda layers, n: (layers, n, 3), _strong_gates, 1,
              False, "StronglyEntanglingLayers (Rot on every wire, CNOT ring of range r)"),
-    Template("entangler", _entangler_qfunc, lambda layers, n: (layers, n), _entangler_layer, 1,
+    Template("entangler", _entangler_qfunc, lambda layers, n: (layers, n), _entangler_gates, 1,
              False, "BasicEntanglerLayers with RY (RY on every wire, CNOT ring)"),
-    Template("ladder", _ladder_qfunc, lambda layers, n: (layers, n, 2), _ladder_layer, 2,
+    Template("ladder", _ladder_qfunc, lambda layers, n: (layers, n, 2), _ladder_gates, 2,
              False, "RY, RZ on every wire, then a CNOT ladder 0-1, 1-2, ..."),
-    Template("soft", _soft_qfunc, lambda layers, n: (layers, n, 3), _soft_layer, 2,
+    Template("soft", _soft_qfunc, lambda layers, n: (layers, n, 3), _soft_gates, 2,
              True, "RY, RZ on every wire, then a CRX ladder (identity at zero)"),
 )})

@@ -1,7 +1,8 @@
 """Benchmark: latent-form compile time and objective-evaluation cost (run by hand).
 
-    PYTHONPATH=. python tests/benchmarks/bench_compile.py        # n = 4, 6, 8
-    PYTHONPATH=. python tests/benchmarks/bench_compile.py 4 6    # chosen sizes
+    PYTHONPATH=. python tests/benchmarks/bench_compile.py              # n = 4, 6, 8
+    PYTHONPATH=. python tests/benchmarks/bench_compile.py 4 6          # chosen sizes
+    PYTHONPATH=. python tests/benchmarks/bench_compile.py 8 --templates strong,soft
 
 (from the repository root; ``PYTHONPATH=.`` is not needed after ``pip install .``).
 Not collected by pytest (the file name does not start with ``test_``).
@@ -21,8 +22,10 @@ space, so a high-entropy instance would measure the ansatz, not the compiler, an
 target. The printed k says how many latent states each case needs; the floor
 -log(captured weight) is the best any ansatz can do with that k.
 
-Measured per case (``compile_latent``, latent="spectrum", default weight 0.999, ansatz
-"strong" with 2n layers, 2 restarts, seed 0, default max_iter = 300 and tol):
+Measured per case (``compile_latent``, latent="spectrum", default weight 0.999, a built-in
+template with 2n layers ("strong" and "soft" by default: long-range CNOT rings against a
+nearest-neighbour CRX ladder), 2 restarts (the first from small angles, the compile's
+default), seed 0, max_iter = 1000 (the target is a wall-clock budget), default tol):
   * wall-clock and process-CPU seconds of the whole compile (the machine may be shared: the
     load average is recorded), the objective S(sigma~||sigma), the report's relative entropy
     and fidelity;
@@ -31,12 +34,13 @@ Measured per case (``compile_latent``, latent="spectrum", default weight 0.999, 
     to agree with the compile report at the compiled parameters): median seconds of one forward
     evaluation and of one value-and-gradient (autograd), and their ratio;
   * baseline: the same objective with the columns U|x> from a PennyLane ``default.qubit``
-    backprop qnode (``bridge.ansatz.columns`` running ``qml.StronglyEntanglingLayers``):
+    backprop qnode (``bridge.ansatz.columns`` running the template's quantum function):
     the same two timings and the speed ratio baseline / ours for value-and-gradient.
 
 Output: a human-readable table, then one JSON object per case on its own line with keys
   case                 "compile_latent_tfim"
   instance             "disordered" or "ordered"
+  template             built-in template name
   n                    qubits
   layers, n_params     ansatz layers (2n) and parameter count
   g, beta              field (units of J) and inverse temperature of the instance
@@ -57,7 +61,7 @@ Output: a human-readable table, then one JSON object per case on its own line wi
   baseline_value_grad_ms
   baseline_grad_to_forward
   speedup              baseline_value_grad_ms / value_grad_ms
-  target_met           "disordered", n = 6 only: compile_s < 60 and relative_entropy < 1e-2
+  target_met           "disordered", n = 8 only: compile_s < 60 and relative_entropy < 1e-2
                        (null for the other cases)
   cpu_count            os.cpu_count() of the machine that ran it
 """
@@ -72,11 +76,11 @@ import time
 import autograd
 import autograd.numpy as anp
 import numpy as np
-import pennylane as qml
 
 from thermoseed.bridge.ansatz import ansatz_columns, columns, make_ansatz
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.latent import spectrum_latent
+from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.pretrain import VisibleGibbsModel
 from thermoseed.pretrain.linalg import entropy_of_spectrum, log_sum_exp_neg
 from thermoseed.recipes.scenarios.magnet_phase import tfim_coefficients, tfim_terms
@@ -85,7 +89,9 @@ from thermoseed.recipes.scenarios.magnet_phase import tfim_coefficients, tfim_te
 INSTANCES = {"disordered": (1.5, 6.0), "ordered": (0.5, 8.0)}
 TARGET_INSTANCE = "disordered"
 RESTARTS = 2
-TARGET_N, TARGET_SECONDS, TARGET_RELATIVE_ENTROPY = 6, 60.0, 1e-2
+MAX_ITER = 1000
+TEMPLATE_NAMES = ("strong", "soft")
+TARGET_N, TARGET_SECONDS, TARGET_RELATIVE_ENTROPY = 8, 60.0, 1e-2
 
 
 def _median_seconds(fn, x, repeats):
@@ -113,15 +119,15 @@ def _objective(rows_of, model, latent):
     return objective
 
 
-def run_case(instance: str, n: int) -> dict:
+def run_case(instance: str, n: int, template: str) -> dict:
     field, beta = INSTANCES[instance]
     model = VisibleGibbsModel.from_coefficients(tfim_terms(n), beta * tfim_coefficients(n, field))
-    ansatz = make_ansatz("strong", n, 2 * n)
+    ansatz = make_ansatz(template, n, 2 * n)
     latent = spectrum_latent(model.spectrum())
 
     load_before = os.getloadavg()[0]
     t0, c0 = time.perf_counter(), time.process_time()
-    result = compile_latent(model, ansatz, restarts=RESTARTS, seed=0)
+    result = compile_latent(model, ansatz, restarts=RESTARTS, seed=0, max_iter=MAX_ITER)
     compile_s, compile_cpu_s = time.perf_counter() - t0, time.process_time() - c0
     load_after = os.getloadavg()[0]
 
@@ -129,7 +135,7 @@ def run_case(instance: str, n: int) -> dict:
         lambda x: ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), latent.basis),
         model, latent)
     base = _objective(
-        lambda x: columns(lambda p: qml.StronglyEntanglingLayers(p, wires=range(n)),
+        lambda x: columns(lambda p: TEMPLATES[template].qfunc(p, list(range(n))),
                           anp.reshape(x, ansatz.shape), n, latent.basis),
         model, latent)
     x = np.asarray(result.params, float).ravel()
@@ -144,7 +150,7 @@ def run_case(instance: str, n: int) -> dict:
     b_vg = _median_seconds(autograd.value_and_grad(base), x, max(3, repeats // 2))
     rep = result.report
     return {
-        "case": "compile_latent_tfim", "instance": instance, "n": n,
+        "case": "compile_latent_tfim", "instance": instance, "template": template, "n": n,
         "layers": ansatz.n_layers, "n_params": ansatz.n_params, "g": field, "beta": beta,
         "k": len(latent.probs), "captured": latent.captured, "floor": rep.floor,
         "restarts": RESTARTS, "compile_s": compile_s, "compile_cpu_s": compile_cpu_s,
@@ -162,22 +168,28 @@ def run_case(instance: str, n: int) -> dict:
 
 
 def main(argv: list[str]) -> int:
+    templates = list(TEMPLATE_NAMES)
+    if "--templates" in argv:
+        at = argv.index("--templates")
+        templates = argv[at + 1].split(",")
+        argv = argv[:at] + argv[at + 2:]
     sizes = [int(a) for a in argv] or [4, 6, 8]
-    cases = [("disordered", n) for n in sizes] + [("ordered", n) for n in sizes if n <= 6]
+    cases = [("disordered", n, t) for t in templates for n in sizes]
+    cases += [("ordered", n, t) for t in templates for n in sizes if n <= 6]
     rows = []
-    for instance, n in cases:
-        rows.append(run_case(instance, n))
-        print(f"{instance} n = {n} done ({rows[-1]['compile_s']:.1f} s)", file=sys.stderr,
-              flush=True)
-    print(f"latent compile of low-temperature TFIM chains, ansatz 'strong' with 2n layers, "
-          f"{RESTARTS} restarts; instances (g/J, beta J): {INSTANCES}")
-    print(f"{'instance':10s} {'n':>2} {'params':>6} {'k':>2} {'floor':>8} {'wall s':>7} "
-          f"{'cpu s':>7} {'load':>9} {'iters':>5} {'S(~||s)':>9} {'fidelity':>9} "
+    for instance, n, template in cases:
+        rows.append(run_case(instance, n, template))
+        print(f"{instance} {template} n = {n} done ({rows[-1]['compile_s']:.1f} s)",
+              file=sys.stderr, flush=True)
+    print(f"latent compile of low-temperature TFIM chains, built-in templates with 2n layers, "
+          f"{RESTARTS} restarts, max_iter {MAX_ITER}; instances (g/J, beta J): {INSTANCES}")
+    print(f"{'instance':10s} {'template':8s} {'n':>2} {'params':>6} {'k':>2} {'floor':>8} "
+          f"{'wall s':>7} {'cpu s':>7} {'load':>9} {'iters':>5} {'S(~||s)':>9} {'fidelity':>9} "
           f"{'fwd ms':>7} {'v+g ms':>7} {'g/f':>5} {'PL fwd':>7} {'PL v+g':>8} {'PL g/f':>6} "
           f"{'speedup':>7}")
     for r in rows:
         load = f"{r['load_avg'][0]:.1f}-{r['load_avg'][1]:.1f}"
-        print(f"{r['instance']:10s} {r['n']:2d} {r['n_params']:6d} {r['k']:2d} "
+        print(f"{r['instance']:10s} {r['template']:8s} {r['n']:2d} {r['n_params']:6d} {r['k']:2d} "
               f"{r['floor']:8.1e} {r['compile_s']:7.1f} {r['compile_cpu_s']:7.1f} {load:>9} "
               f"{r['n_iter']:5d} {r['relative_entropy']:9.2e} {r['fidelity']:9.6f} "
               f"{r['forward_ms']:7.2f} {r['value_grad_ms']:7.2f} {r['grad_to_forward']:5.1f} "
@@ -185,8 +197,9 @@ def main(argv: list[str]) -> int:
               f"{r['baseline_grad_to_forward']:6.1f} {r['speedup']:7.1f}")
     for r in rows:
         if r["target_met"] is not None:
-            print(f"target ({r['instance']}, n = {TARGET_N}: < {TARGET_SECONDS:g} s wall and "
-                  f"S < {TARGET_RELATIVE_ENTROPY:g}): {'met' if r['target_met'] else 'NOT met'}")
+            print(f"target ({r['instance']}, {r['template']}, n = {TARGET_N}: "
+                  f"< {TARGET_SECONDS:g} s wall and S < {TARGET_RELATIVE_ENTROPY:g}): "
+                  f"{'met' if r['target_met'] else 'NOT met'}")
     for r in rows:
         print(json.dumps(r))
     return 0
