@@ -3,9 +3,9 @@
 Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    lazy -> errors -> checks -> _base -> files -> linalg -> frechet -> paulis -> data ->
-    shadows -> records -> uncertainty -> labelled -> engines -> optim -> models ->
-    measurements -> classifier -> term_growth -> diagnostics -> hidden_layout ->
+    lazy -> errors -> checks -> memory -> _base -> files -> linalg -> frechet -> paulis ->
+    data -> shadows -> records -> uncertainty -> labelled -> engines -> optim -> divergence ->
+    models -> measurements -> classifier -> term_growth -> diagnostics -> hidden_layout ->
     hidden_engines -> hidden -> hidden_diagnostics
 """
 
@@ -20,8 +20,8 @@ EXPORTS = {
     "diagnostics": ("fidelity", "moment_residuals", "relative_entropy", "trace_distance"),
     "engines": ("DenseEngine", "GibbsEngine", "GibbsEvaluation", "make_engine",
         "TypicalityEngine"),
-    "errors": ("ConvergenceWarning", "DivergenceWarning", "NotFittedError", "ThermoseedError",
-        "WashoutWarning"),
+    "errors": ("ConvergenceWarning", "DivergenceWarning", "NotFittedError", "SlowDenseWarning",
+        "ThermoseedError", "WashoutWarning"),
     "files": ("read_record", "write_record"),
     "frechet": ("daleckii_krein", "exp_divided_differences", "frechet_exp", "frechet_log",
         "log_divided_differences"),

@@ -13,12 +13,14 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
 from .errors import ThermoseedError
 from .files import CORRUPT_FILE_ERRORS
 from .linalg import von_neumann_entropy
+from .memory import LARGE_DATA_HINT, check_dense_memory
 from .paulis import TermSet, expectations
 
 #: Largest |A - A^dag| entry accepted for a density matrix.
@@ -87,9 +89,15 @@ def _finite(arr: np.ndarray, what: str) -> np.ndarray:
 
 
 def _check_weights(weights, count: int) -> np.ndarray:
+    """Mixture weights ``w_i / sum_k w_k``, computed as ``u_i / sum_k u_k`` with
+    ``u = w / max w`` so that weights near the float maximum (1e308) do not overflow the sum
+    to inf (which turned every weight, and rho, into 0)."""
     if weights is None:
         return np.full(count, 1.0 / count)
-    w = np.asarray(weights, dtype=float)
+    try:
+        w = np.asarray(weights, dtype=float)
+    except (TypeError, ValueError) as err:
+        raise ThermoseedError(f"weights must be {count} real numbers: {err}") from err
     if w.shape != (count,):
         raise ThermoseedError(f"weights have shape {w.shape}; expected ({count},), one per state")
     if not np.all(np.isfinite(w)) or np.any(w <= 0):
@@ -97,7 +105,15 @@ def _check_weights(weights, count: int) -> np.ndarray:
         raise ThermoseedError(
             f"weights must be positive and finite; entries {bad} are not (drop those states)"
         )
-    return w / w.sum()
+    scaled = w / w.max()
+    return scaled / scaled.sum()
+
+
+def _check_members(count: int, shape: tuple[int, ...], what: str, expected: str) -> None:
+    """A batch needs at least one member (an empty one used to divide by zero)."""
+    if count < 1:
+        raise ThermoseedError(
+            f"{what} has shape {shape} with no members; expected {expected} with B >= 1")
 
 
 def _check_labels(labels, count: int) -> np.ndarray | None:
@@ -145,13 +161,14 @@ def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density
     return a
 
 
-def from_states(states, weights=None, *, labels=None, renormalize: bool = False) -> TrainingData:
-    """Mixture of pure states: ``rho = sum_i w_i |psi_i><psi_i|``; ``states`` is (B, 2^n)."""
+def _checked_states(states, weights, renormalize: bool) -> tuple[np.ndarray, np.ndarray, int]:
+    """Validated ``(states (B, 2^n), weights summing to 1, n)`` of a state-vector batch."""
     s = _finite(states, "state batch")
     if s.ndim == 1:
         s = s[None, :]
     if s.ndim != 2:
         raise ThermoseedError(f"state batch must be (B, 2^n), got shape {s.shape}")
+    _check_members(s.shape[0], s.shape, "state batch", "(B, 2^n) state vectors")
     n = _qubits_of(s.shape[1], "state vector")
     norms = np.linalg.norm(s, axis=1)
     off = np.flatnonzero(np.abs(norms**2 - 1.0) > TRACE_ATOL)
@@ -162,9 +179,59 @@ def from_states(states, weights=None, *, labels=None, renormalize: bool = False)
                 f"{norms[off[0]] ** 2:.12g}); pass renormalize=True to normalise them"
             )
         s = s / norms[:, None]
-    w = _check_weights(weights, s.shape[0])
+    return s, _check_weights(weights, s.shape[0]), n
+
+
+def from_states(states, weights=None, *, labels=None, renormalize: bool = False) -> TrainingData:
+    """Mixture of pure states: ``rho = sum_i w_i |psi_i><psi_i|``; ``states`` is (B, 2^n)."""
+    s, w, n = _checked_states(states, weights, renormalize)
+    check_dense_memory(n, 1, "the dense density matrix", LARGE_DATA_HINT)
     rho = (s.T * w) @ s.conj()
     return TrainingData(rho, n, s.shape[0], w, _check_labels(labels, s.shape[0]), s)
+
+
+class StateBatchSummary(NamedTuple):
+    """What a fit needs of ``rho = sum_i w_i |psi_i><psi_i|``, without the d x d matrix.
+
+    Attributes:
+        n_qubits: number of qubits.
+        moments: ``m_j = sum_i w_i <psi_i|P_j|psi_i>``.
+        spectrum: rho's spectrum without its ``d - B`` structural zeros (B values,
+            ascending, clipped at 0).
+        support: orthonormal basis (d x r) of rho's range: eigenvectors with eigenvalue at or
+            above ``floor``.
+    """
+
+    n_qubits: int
+    moments: np.ndarray
+    spectrum: np.ndarray
+    support: np.ndarray
+
+
+def summarize_states(states, terms: TermSet, weights=None, *, renormalize: bool = False,
+                     floor: float = 1e-10) -> StateBatchSummary:
+    """Moments, spectrum and range of a state mixture in O(B d (k + B)) time and O(B d)
+    memory (no d x d matrix).
+
+    With ``A = (sqrt(w_1) psi_1, ..., sqrt(w_B) psi_B)`` (d x B), ``rho = A A^dag`` and the
+    Gram matrix ``G = A^dag A`` (B x B) share their nonzero eigenvalues; for ``G v = g v``,
+    ``A v / sqrt(g)`` is a unit eigenvector of rho (the singular value decomposition of A).
+    The moments are ``Tr(rho P) = sum_b rho[b, b^x] i^{|x&z|} (-1)^{|z&b|}`` (the x-mask
+    gather of ``pauli_traces``) with ``rho[b, b^x] = sum_i w_i psi_i[b] psi_i[b^x]^*``.
+    """
+    s, w, n = _checked_states(states, weights, renormalize)
+    check_qubits(n, terms)
+    idx = np.arange(terms.dim)
+    moments = np.zeros(len(terms))
+    for g in terms.groups:
+        gathered = (w[:, None] * s * s[:, idx ^ g.x].conj()).sum(axis=0)
+        moments[g.index] = (g.phase * (g.signs @ gathered)).real
+    factor = s.T * np.sqrt(w)
+    values, vectors = np.linalg.eigh(factor.conj().T @ factor)
+    values = np.clip(values, 0.0, None)
+    kept = values >= floor
+    support = factor @ (vectors[:, kept] / np.sqrt(values[kept]))
+    return StateBatchSummary(n, moments, values, support)
 
 
 def from_density_matrices(
@@ -176,6 +243,11 @@ def from_density_matrices(
         r = r[None]
     if r.ndim != 3:
         raise ThermoseedError(f"density matrices must be (B, 2^n, 2^n), got shape {r.shape}")
+    _check_members(r.shape[0], r.shape, "density-matrix stack", "(B, 2^n, 2^n) matrices")
+    dim = r.shape[-1]
+    if dim == r.shape[-2] and dim >= 2 and dim & (dim - 1) == 0:
+        check_dense_memory(dim.bit_length() - 1, len(r) + 1,
+                           "the checked density matrices and their mixture", LARGE_DATA_HINT)
     checked = np.stack(
         [check_density_matrix(m, renormalize=renormalize, what=f"density matrix {i}")
          for i, m in enumerate(r)]
@@ -252,6 +324,25 @@ def as_training_data(
             )
     build = from_states if kind == "states" else from_density_matrices
     return build(arr, weights, labels=labels, renormalize=renormalize)
+
+
+def stored_states(path) -> tuple[np.ndarray, np.ndarray | None] | None:
+    """``(states, weights or None)`` when the ``.npz``/``.npy`` file at ``path`` holds a batch
+    of state vectors (an ``.npz`` with ``states`` and no ``density``, or a 1-D or non-square
+    2-D ``.npy``); None otherwise, including unreadable files (``load_training_data`` then
+    says what is wrong). Lets a fit of many qubits skip the dense rho."""
+    try:
+        loaded = np.load(Path(path), allow_pickle=False)
+        if isinstance(loaded, np.ndarray):
+            flat = loaded.ndim == 1 or (loaded.ndim == 2 and loaded.shape[0] != loaded.shape[1])
+            return (loaded, None) if flat else None
+        with loaded:
+            if "states" not in loaded.files or "density" in loaded.files:
+                return None
+            weights = loaded["weights"] if "weights" in loaded.files else None
+            return loaded["states"], weights
+    except CORRUPT_FILE_ERRORS:
+        return None
 
 
 def load_training_data(path, *, kind: str | None = None, renormalize: bool = False):

@@ -3,7 +3,10 @@
 ``sigma(theta) = exp(-H(theta)) / Z``, ``H = sum_j theta_j P_j``. Fitting minimises
 ``L(theta) = S(rho||sigma) + (l2/2)|theta|^2 = -S(rho) + theta.m + log Z + (l2/2)|theta|^2``
 with exact gradient ``m - <P>_sigma + l2 theta``, ``m_j = Tr(rho P_j)``. L is convex, so
-L-BFGS reaches the maximum-entropy state whose moments equal the data's.
+L-BFGS reaches the maximum-entropy state whose moments equal the data's, when one exists:
+rank-deficient data lying in the ground space of some ``sum_j c_j P_j`` have their optimum at
+``|theta| -> infinity`` (``pretrain.divergence`` certifies it; a DivergenceWarning says so and
+``l2 > 0`` restores a finite optimum).
 
 Measurement records give noisy moments ``m`` with a covariance (``records.from_records``);
 S(rho) is then unknown and the loss reported is the cross entropy
@@ -16,7 +19,6 @@ reports the residuals ``(m_j - <P_j>_sigma) / SE_j`` and propagates the noise in
 from __future__ import annotations
 
 import hashlib
-import warnings
 from pathlib import Path
 
 import numpy as np
@@ -28,28 +30,33 @@ from .data import (
     check_density_matrix,
     check_qubits,
     square_array_kind,
+    stored_states,
+    summarize_states,
 )
-from .engines import ENGINES, GibbsEngine, choose_engine, make_engine
-from .errors import DivergenceWarning, ThermoseedError
+from .divergence import ground_space_certificate, warn_divergence
+from .engines import AUTO_DENSE_MAX_QUBITS, ENGINES, GibbsEngine, choose_engine, make_engine
+from .errors import ThermoseedError
 from .files import json_scalar, read_record, write_record
 from .linalg import entropy_of_spectrum, von_neumann_entropy
-from .optim import SOLVERS, Callback, minimize
+from .memory import LARGE_DATA_HINT, announce_dense_cost, check_dense_memory
+from .optim import SOLVERS, Callback, minimize, warn_unconverged
 from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
 from .records import BasisCounts, PauliShots, from_records, is_records_file
 from .shadows import MomentEstimates
 from .uncertainty import coefficient_covariance, log_partition_hessian
 
-#: |theta| entries above this mean weights e^{-|theta|} below ~1e-11: the fit is chasing a
-#: rank-deficient target and the coefficients have no finite optimum (use l2 > 0).
+#: Moment data only (no rho to certify with): |theta| entries above this mean weights
+#: e^{-|theta|} below ~1e-11, the mark of moments no Gibbs state reaches (use l2 > 0).
 DIVERGENCE_COEF = 25.0
-#: Smallest data eigenvalue below which the data count as rank-deficient.
+#: Smallest data eigenvalue below which the data count as rank-deficient; states data are
+#: then tested with ``divergence.ground_space_certificate`` (full-rank data never diverge).
 RANK_FLOOR = 1e-10
-#: Divergence rule of thumb for rank-deficient data without a penalty: the fitted sigma keeps
-#: more than NULL_EXCESS times the data's weight on the data's (numerical) null space while
-#: some |theta| exceeds RANK_DEFICIENT_COEF. A pure state stalls there (its optimum is at
-#: |theta| -> inf); low-temperature thermal data match their tiny weights at finite theta.
-NULL_EXCESS = 1e3
-RANK_DEFICIENT_COEF = 5.0
+#: State-vector arrays on at least this many qubits (where ``engine="auto"`` is typicality)
+#: are summarised without the dense rho (``data.summarize_states``).
+MATRIX_FREE_FROM_QUBITS = AUTO_DENSE_MAX_QUBITS + 1
+#: Dense complex matrices the data's eigendecomposition allocates besides rho (a working copy,
+#: the eigenvectors, LAPACK workspace of about one more).
+DATA_SPECTRUM_MATRICES = 3
 #: With noisy moments the fit stops at |grad| <= max(tol, NOISE_TOL_FRACTION * min SE_j):
 #: every residual is then below 1% of its standard error.
 NOISE_TOL_FRACTION = 1e-2
@@ -92,6 +99,9 @@ class VisibleGibbsModel(ParamsMixin):
             the moment noise (plus the engine's own, for typicality) and its diagonal's root.
         grad_norm_: final gradient norm (with the penalty).
         n_iter_: iterations used. converged_: whether ``grad_norm_ <= tol``.
+        diverging_: whether the optimum lies at |theta| -> infinity (a DivergenceWarning
+            says so; ``l2 > 0`` is the fix): certified for states data, coefficient size
+            for moment data.
         history_: dict of per-iteration ``loss`` and ``grad_norm`` lists.
 
     Examples:
@@ -224,14 +234,17 @@ class VisibleGibbsModel(ParamsMixin):
         if estimates is None:
             if kind is None:
                 kind = square_array_kind(data)
-            td: TrainingData = as_training_data(data, kind=kind)
-            check_qubits(td.n_qubits, terms)
-            moments = td.moments(terms)
-            data_vals, data_vecs = np.linalg.eigh(td.rho)  # one decomposition: entropy + rank
-            entropy = entropy_of_spectrum(data_vals)
-            rank_deficient = data_vals.min() < RANK_FLOOR
+            batch = self._large_state_batch(data, kind, terms)
+            if batch is not None:
+                summary = summarize_states(batch[0], terms, batch[1], floor=RANK_FLOOR)
+                moments, support = summary.moments, (summary.support, None)
+                entropy = entropy_of_spectrum(summary.spectrum)
+                self._announce_cost(terms, False, stacklevel=2)
+            else:
+                moments, entropy, support = self._dense_data(data, kind, terms)
         else:
-            moments, entropy, rank_deficient = estimates.values.copy(), 0.0, False
+            moments, entropy, support = estimates.values.copy(), 0.0, None
+            self._announce_cost(terms, False, stacklevel=2)
             positive = estimates.stderr[estimates.stderr > 0]
             if positive.size:
                 tol = max(tol, NOISE_TOL_FRACTION * float(positive.min()))
@@ -249,6 +262,7 @@ class VisibleGibbsModel(ParamsMixin):
             progress=self.progress,
             checkpoint=self.checkpoint,
             fingerprint=self._fingerprint(terms, moments) if self.checkpoint else "",
+            warn=False,
         )
         self.terms_ = terms
         self.coef_ = result.x
@@ -264,30 +278,65 @@ class VisibleGibbsModel(ParamsMixin):
             if not np.array_equal(seen, result.x):
                 final = engine.evaluate(result.x)
             self._noise_report(estimates, final, coef_errors)
-        largest = float(np.abs(self.coef_).max())
-        suspect = False
-        if rank_deficient and self.l2 == 0 and getattr(engine, "stochastic", False):
-            suspect = not self.converged_  # no sigma to inspect the null space with
-        elif rank_deficient and self.l2 == 0:
-            vals, vecs = data_vals, data_vecs
-            null = vals < RANK_FLOOR
-            sigma = engine.evaluate(self.coef_, want_state=True).state
-            model_null = np.einsum("ai,ab,bi->", vecs[:, null].conj(), sigma, vecs[:, null]).real
-            data_null = float(np.clip(vals[null], 0.0, None).sum())
-            suspect = (not self.converged_) or (
-                largest > RANK_DEFICIENT_COEF and model_null > NULL_EXCESS * data_null)
-        if largest > DIVERGENCE_COEF or suspect:
-            why = ("the data are (near) rank-deficient and a Gibbs state is full rank" if
-                   estimates is None else "the noisy moments may lie where no Gibbs state of "
-                   "these terms reaches (too few shots for near-pure data)")
-            warnings.warn(
-                f"coefficients are diverging (largest |theta| = {largest:.3g}, converged = "
-                f"{self.converged_}): {why}, so the optimum lies at infinity; set l2 > 0 "
-                "(e.g. 1e-3)",
-                DivergenceWarning,
-                stacklevel=2,
-            )
+        self.diverging_ = self._diverges(terms, support, moments, estimates is None)
+        if self.diverging_:
+            warn_divergence(self.coef_, self.n_iter_, result.stop, from_states=estimates is None)
+        else:
+            warn_unconverged(result, tol, stacklevel=2)
         return self
+
+    def _diverges(self, terms: TermSet, support, moments: np.ndarray, from_states: bool
+                  ) -> bool:
+        """Whether the optimum lies at |theta| -> infinity. ``support``: (range basis,
+        null-space basis) of the data (None for moment data). States data: only rank-deficient
+        data without a penalty can diverge, and only when they lie in the ground space of a
+        direction the fit moves along (``divergence.ground_space_certificate``). Moment data
+        (no rho): coefficients above ``DIVERGENCE_COEF``."""
+        if not from_states:
+            return bool(np.abs(self.coef_).max() > DIVERGENCE_COEF)
+        if self.l2 > 0 or support[0].shape[1] == terms.dim:
+            return False
+        return ground_space_certificate(terms, support[0], moments, self.coef_,
+                                        support[1]).diverges
+
+    @staticmethod
+    def _large_state_batch(data, kind: str | None, terms: TermSet):
+        """``(states, weights)`` of state-vector data (array or file) above
+        ``MATRIX_FREE_FROM_QUBITS`` qubits, which ``summarize_states`` handles without the
+        2^n x 2^n matrix; None for everything else."""
+        if terms.n_qubits < MATRIX_FREE_FROM_QUBITS:
+            return None
+        if isinstance(data, (str, Path)):
+            return stored_states(data) if kind in (None, "states") else None
+        if not isinstance(data, (np.ndarray, list)):
+            return None
+        arr = np.asarray(data)
+        flat = arr.ndim == 1 or (arr.ndim == 2 and (
+            kind == "states" or (kind is None and arr.shape[0] != arr.shape[1])))
+        return (arr, None) if flat else None
+
+    def _dense_data(self, data, kind: str | None, terms: TermSet):
+        """``(moments, S(rho), (range basis, null-space basis))`` from the dense rho and one
+        eigendecomposition (refused when it does not fit in memory, announced when slow)."""
+        td: TrainingData = as_training_data(data, kind=kind)
+        check_qubits(td.n_qubits, terms)
+        moments = td.moments(terms)
+        check_dense_memory(td.n_qubits, DATA_SPECTRUM_MATRICES,
+                           "the data's eigendecomposition", LARGE_DATA_HINT)
+        self._announce_cost(terms, True, stacklevel=3)
+        values, vectors = np.linalg.eigh(td.rho)  # one decomposition: entropy + rank
+        kept = values >= RANK_FLOOR
+        return moments, entropy_of_spectrum(values), (vectors[:, kept], vectors[:, ~kept])
+
+    def _announce_cost(self, terms: TermSet, data_spectrum: bool, stacklevel: int) -> None:
+        """One SlowDenseWarning before long dense work (``memory``): the data's
+        eigendecomposition (``data_spectrum``) and/or dense-engine steps."""
+        name, _ = self._engine_spec()
+        work = ["the data's eigendecomposition (once)"] if data_spectrum else []
+        if choose_engine(name, terms.n_qubits) == "dense":
+            work.append("each dense-engine step")
+        if work:
+            announce_dense_cost(terms.n_qubits, " and ".join(work), stacklevel=stacklevel + 2)
 
     def _noise_report(self, estimates: MomentEstimates, final, coef_errors: bool) -> None:
         """Residuals in standard errors and, if asked, Cov(theta) (module docstring)."""
@@ -379,7 +428,8 @@ def save_model(model, path) -> Path:
     metrics = {
         name: json_scalar(getattr(model, attr))
         for name, attr in [("loss", "loss_"), ("grad_norm", "grad_norm_"), ("n_iter", "n_iter_"),
-                           ("converged", "converged_"), ("data_entropy", "data_entropy_")]
+                           ("converged", "converged_"), ("diverging", "diverging_"),
+                 ("data_entropy", "data_entropy_")]
         if hasattr(model, attr)
     }
     header = {"model": type(model).__name__, "n_qubits": model.terms_.n_qubits,
@@ -406,7 +456,8 @@ def load_model(path):
     except (KeyError, TypeError) as err:
         raise ThermoseedError(f"model file {str(path)!r} is incomplete: missing {err}") from err
     for name, attr in [("loss", "loss_"), ("grad_norm", "grad_norm_"), ("n_iter", "n_iter_"),
-                       ("converged", "converged_"), ("data_entropy", "data_entropy_")]:
+                       ("converged", "converged_"), ("diverging", "diverging_"),
+                 ("data_entropy", "data_entropy_")]:
         if name in metrics:
             setattr(model, attr, metrics[name])
     if "target_moments" in arrays:

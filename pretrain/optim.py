@@ -91,12 +91,30 @@ def adam_steps(
 
 
 class FitResult(NamedTuple):
+    """``stop``: why the run ended: ``"tolerance"``, ``"iteration cap"``, ``"stalled line
+    search"`` or ``"callback"``."""
+
     x: np.ndarray
     loss: float
     grad_norm: float
     n_iter: int
     converged: bool
     history: dict[str, list[float]]
+    stop: str = "tolerance"
+
+
+def warn_unconverged(result: FitResult, tol: float, *, stacklevel: int = 2) -> None:
+    """ConvergenceWarning (raise max_iter) for a run that stopped short of ``tol`` by itself;
+    nothing for a converged run or one a callback stopped."""
+    if result.converged or result.stop == "callback":
+        return
+    warnings.warn(
+        f"stopped at {result.stop} after {result.n_iter} iterations with |grad| = "
+        f"{result.grad_norm:.3g} > tol = {tol:g}; raise max_iter or loosen tol (tol near 1e-8 "
+        "hits round-off)",
+        ConvergenceWarning,
+        stacklevel=stacklevel + 1,
+    )
 
 
 class _Recorder:
@@ -189,12 +207,15 @@ def minimize(
     checkpoint: str | Path | None = None,
     checkpoint_every: int = 25,
     fingerprint: str = "",
+    warn: bool = True,
 ) -> FitResult:
     """Minimise until ``|grad| <= tol`` or ``max_iter`` iterations.
 
     With ``checkpoint`` set, state is saved every ``checkpoint_every`` iterations and an
     existing checkpoint is resumed from (L-BFGS restarts its curvature memory on resume),
     only when it carries the same ``fingerprint`` (what the caller says the fit is of).
+    ``warn=False`` leaves the ConvergenceWarning to the caller (``warn_unconverged``), which
+    may know a better reason (a divergent fit).
     """
     if solver not in SOLVERS:
         raise ThermoseedError(f"unknown solver {solver!r}; choose one of {SOLVERS}")
@@ -216,18 +237,19 @@ def minimize(
     loss, grad = loss_and_grad(x)
     gnorm = float(np.linalg.norm(grad))
     converged = gnorm <= tol
-    if not converged and not rec.stopped_by_callback:
-        reason = "the iteration cap" if rec.step >= max_iter else "a stalled line search"
-        warnings.warn(
-            f"stopped at {reason} after {rec.step} iterations with |grad| = {gnorm:.3g} > "
-            f"tol = {tol:g}; raise max_iter or loosen tol (tol near 1e-8 hits round-off)",
-            ConvergenceWarning,
-            stacklevel=3,
-        )
+    if converged:
+        stop = "tolerance"
+    elif rec.stopped_by_callback:
+        stop = "callback"
+    else:
+        stop = "the iteration cap" if rec.step >= max_iter else "a stalled line search"
     if checkpoint is not None:
         save_checkpoint(checkpoint, x, rec.step, rec.history, rec.last_extra or extra,
                         fingerprint)
-    return FitResult(x, float(loss), gnorm, rec.step, converged, rec.history)
+    result = FitResult(x, float(loss), gnorm, rec.step, converged, rec.history, stop)
+    if warn:
+        warn_unconverged(result, tol, stacklevel=3)
+    return result
 
 
 def _run_adam(loss_and_grad, x, rec, tol, max_iter, learning_rate, extra) -> np.ndarray:

@@ -12,8 +12,12 @@ import numpy as np
 
 from ..errors import ThermoseedError
 from ..linalg import WEIGHT_CUTOFF, eigh, log_sum_exp_neg
+from ..memory import check_dense_memory
 from ..paulis import TermSet, dense_hamiltonian, expectations
 from .base import GibbsEngine, GibbsEvaluation
+
+#: Dense matrices one evaluation holds at once: H, its eigenvectors, the weighted factor, sigma.
+STEP_MATRICES = 4
 
 
 class DenseEngine(GibbsEngine):
@@ -27,6 +31,9 @@ class DenseEngine(GibbsEngine):
                 f"the dense engine handles at most {self.max_qubits} qubits "
                 f"(2^n x 2^n matrices); got {terms.n_qubits}"
             )
+        check_dense_memory(terms.n_qubits, STEP_MATRICES,
+                           "a dense-engine step (H, its eigenvectors and sigma)",
+                           "use engine='typicality'")
         super().__init__(terms)
 
     def evaluate(self, theta: np.ndarray, *, want_state: bool = False) -> GibbsEvaluation:
