@@ -6,9 +6,10 @@ gradient probes, statistics, sweeps, reports). It imports ``thermoseed.pretrain`
 ``thermoseed.recipes``.
 
 Layer order, lowest first (a module imports only modules before it):
-    gate_sweep -> templates -> ansatz -> circuits -> latent -> compile -> readout -> compile_record ->
-    warm_starts -> classifier -> eigensolver -> plateau.gradients -> plateau.strategies ->
-    plateau.probes -> plateau.stats -> plateau.sweep -> plateau.report
+    gate_sweep -> templates -> ansatz -> families -> circuits -> latent -> compile -> readout ->
+    compile_record -> warm_starts -> classifier -> eigensolver -> plateau.gradients ->
+    plateau.strategies -> plateau.probes -> plateau.stats -> plateau.executors ->
+    plateau.sweep -> plateau.report
 """
 
 from thermoseed.pretrain.lazy import lazy_exports
@@ -21,6 +22,7 @@ EXPORTS = {
     "compile": ("CompileResult", "compile_latent", "compile_purified"),
     "compile_record": ("load_compile", "save_compile"),
     "eigensolver": ("run_eigensolver",),
+    "families": ("CircuitFamily", "circuit_family"),
     "readout": ("readout_compile",),
     "templates": ("TEMPLATES",),
     "warm_starts": ("WarmStart", "load_warm_start", "save_warm_start", "warm_start"),

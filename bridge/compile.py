@@ -325,11 +325,12 @@ def compile_latent(
 
 def compile_purified(
     model, ansatz: Ansatz, *, n_visible: int | None = None, restarts: int = 3, seed: int = 0,
-    max_iter: int = 300, tol: float = 1e-6, init_scale: float = 2 * np.pi, data=None,
-    progress: bool = False,
+    max_iter: int = 300, tol: float = 1e-6, init_scale: float = 2 * np.pi,
+    small_start: bool = True, data=None, progress: bool = False,
 ) -> CompileResult:
     """Purified-form compile: ``ansatz`` acts on visible wires 0..n-1 plus ancillas n..;
-    minimises ``S(rho_v || sigma)`` of the visible reduced state of ``W|0...0>``."""
+    minimises ``S(rho_v || sigma)`` of the visible reduced state of ``W|0...0>``. Restarts
+    start as in ``compile_latent`` (the first near zero when ``small_start``)."""
     n = model.terms_.n_qubits if n_visible is None else int(n_visible)
     _check_model(model, ansatz, n)
     if ansatz.n_wires <= n:
@@ -349,7 +350,8 @@ def compile_purified(
         energy = anp.real(anp.sum(anp.conj(m) * anp.dot(h, m)))
         return -_entropy_of_factor(m) + energy + log_z
 
-    best = _optimise(objective, _restart_inits(ansatz, 0, restarts, seed, init_scale),
+    best = _optimise(objective,
+                     _restart_inits(ansatz, 0, restarts, seed, init_scale, small_start),
                      max_iter=max_iter, tol=tol, progress=progress, desc="compile")
     params = best.x.reshape(ansatz.shape)
     report = _report(compiled_state("purified", ansatz, params, None, n), best.loss, 0.0,

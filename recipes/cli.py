@@ -13,7 +13,7 @@ import sys
 from pathlib import Path
 
 from thermoseed.pretrain.errors import ThermoseedError
-from thermoseed.recipes.config import TEMPLATE_NAMES
+from thermoseed.recipes.config import GRAPH_NAMES, TEMPLATE_NAMES
 
 
 def _int_at_least(low: int):
@@ -92,6 +92,26 @@ def _names(text: str) -> list[str]:
     return words
 
 
+def _data_files(text: str) -> dict[int | None, str]:
+    """``--data``: one file (its qubit count read from it) or ``N=file,M=file`` pairs."""
+    if "=" not in text:
+        return {None: text}
+    files: dict[int | None, str] = {}
+    for item in _word_list(text):
+        size, _, path = item.partition("=")
+        try:
+            n = int(size)
+        except ValueError:
+            n = 0
+        if n < 1 or not path:
+            raise argparse.ArgumentTypeError(
+                f"expected QUBITS=FILE pairs, e.g. 4=a.npz,6=b.npz, got {item!r}")
+        if n in files:
+            raise argparse.ArgumentTypeError(f"qubit count {n} is given twice in {text!r}")
+        files[n] = path
+    return files
+
+
 def _json(payload, indent: int | None = None) -> str:
     """``json_text`` (imported late: ``--help`` stays free of numpy)."""
     from thermoseed.pretrain.files import json_text
@@ -111,6 +131,25 @@ def _subcommand(sub, name: str, handler, *, help: str, epilog: str,
                             formatter_class=argparse.RawDescriptionHelpFormatter)
     _add_common(parser)
     parser.set_defaults(handler=handler)
+    return parser
+
+
+def _add_model_options(parser: argparse.ArgumentParser, title: str, graphs=GRAPH_NAMES):
+    """The Gibbs model's term set and penalty (``fit`` and ``sweep`` share them), in an
+    argument group ``title``; returns the group."""
+    parser = parser.add_argument_group(title)
+    parser.add_argument("--graph", default="line", choices=list(graphs),
+                        help="coupling graph (default line"
+                             + ("; grid needs --shape, edges --edges)" if "edges" in graphs
+                                else ")"))
+    parser.add_argument("--fields", default="XZ", help="single-qubit letters (default XZ)")
+    parser.add_argument("--couplings", type=_word_list, default=["ZZ", "XX"],
+                        help="comma-separated letter pairs on each edge (default ZZ,XX)")
+    parser.add_argument("--parity", action="store_true",
+                        help="add the global X/Y parity strings and Z...Z (they see a GHZ "
+                             "phase)")
+    parser.add_argument("--l2", type=_nonneg_float, default=1e-3,
+                        help="L2 penalty (default 1e-3: pure or low-rank data need one)")
     return parser
 
 
@@ -143,6 +182,7 @@ def _cmd_fit(args) -> int:
                               progress=not args.quiet, checkpoint=args.checkpoint)
     model.fit(data)
     path = model.save(args.out)
+    plot = _convergence_plot(args, "fit", model.history_)
     if records:
         worst = float(abs(model.moment_zscores_).max())
         summary = {"model": str(path), "n_qubits": data.n_qubits, "terms": len(terms),
@@ -150,12 +190,12 @@ def _cmd_fit(args) -> int:
                    "max_abs_residual_in_stderr": worst,
                    "max_coef_stderr": float(model.coef_stderr_.max()),
                    "grad_norm": model.grad_norm_, "iterations": model.n_iter_,
-                   "converged": bool(model.converged_)}
+                   "converged": bool(model.converged_),
+                   "diverging": bool(model.diverging_), **plot}
         _say(args, f"fit from {data.n_shots} shots: largest moment residual {worst:.2g} "
                    f"standard errors, coefficient errors up to "
                    f"{summary['max_coef_stderr']:.3g}; {model.n_iter_} iterations, "
-                   f"{'converged' if model.converged_ else 'NOT converged (raise --max-iter)'}"
-                   f"; {len(terms)} terms -> {path}")
+                   f"{_fit_status(model)}; {len(terms)} terms -> {path}")
         print(_json(summary))
         return 0
     from thermoseed.pretrain import fidelity, trace_distance
@@ -166,14 +206,34 @@ def _cmd_fit(args) -> int:
                "fidelity": fidelity(data.rho, sigma),
                "trace_distance": trace_distance(data.rho, sigma),
                "grad_norm": model.grad_norm_, "iterations": model.n_iter_,
-               "converged": bool(model.converged_)}
+               "converged": bool(model.converged_), "diverging": bool(model.diverging_),
+               **plot}
     _say(args, f"fit: S(rho||sigma) = {model.loss_:.4g} nats (data entropy "
                f"{model.data_entropy_:.4g}), fidelity {summary['fidelity']:.4f}, trace "
                f"distance {summary['trace_distance']:.4f}; {model.n_iter_} iterations, "
-               f"{'converged' if model.converged_ else 'NOT converged (raise --max-iter)'}; "
-               f"{len(terms)} terms -> {path}")
+               f"{_fit_status(model)}; {len(terms)} terms -> {path}")
     print(_json(summary))
     return 0
+
+
+def _fit_status(model) -> str:
+    """One honest word on how the fit ended, with the one fix that applies."""
+    if model.diverging_:
+        return "diverging: the data sit on the edge of the model family (pass --l2 > 0)"
+    return "converged" if model.converged_ else "NOT converged (raise --max-iter)"
+
+
+def _convergence_plot(args, stage: str, history, floor: float = 0.0) -> dict:
+    """Write ``--convergence-plot`` (when given) for the fit or compile history."""
+    if not args.convergence_plot:
+        return {}
+    from thermoseed.recipes.plots import plot_compile_history, plot_fit_history
+
+    if stage == "fit":
+        path = plot_fit_history(history, args.convergence_plot)
+    else:
+        path = plot_compile_history(history, args.convergence_plot, floor=floor)
+    return {"convergence_plot": str(path)}
 
 
 def _cmd_compile(args) -> int:
@@ -191,8 +251,9 @@ def _cmd_compile(args) -> int:
                             seed=args.seed, max_iter=args.max_iter, data=data,
                             progress=not args.quiet)
     path = save_compile(result, args.out)
+    plot = _convergence_plot(args, "compile", result.history, result.report.floor)
     print(_json({"compile": str(path), "latent_states": len(result.latent.basis),
-                      **{k: v for k, v in result.report._asdict().items()}}))
+                 **{k: v for k, v in result.report._asdict().items()}, **plot}))
     return 0
 
 
@@ -260,16 +321,21 @@ def _sweep_summary(path) -> dict:
 
 
 def _cmd_sweep(args) -> int:
+    from thermoseed.bridge.plateau.strategies import PretrainSettings
     from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 
     data = None
     if args.data:
-        from thermoseed.pretrain.labelled import load_labelled
+        from thermoseed.recipes.sources import labelled_files
 
-        labelled = load_labelled(args.data, seed=args.seed)
-        data = {labelled.n_qubits: labelled}
+        data = labelled_files(args.data, what="--data", seed=args.seed)
+    settings = PretrainSettings(graph=args.graph, fields=args.fields,
+                                couplings=tuple(args.couplings), l2=args.l2,
+                                parity=args.parity)
+    settings.terms(max(args.sizes))  # a bad letter stops here, not inside a worker
     jobs = make_grid(args.sizes, args.strategies, range(args.seed, args.seed + args.seeds),
-                     costs=args.costs, template=args.template, depths=args.depths)
+                     costs=args.costs, template=args.template, depths=args.depths,
+                     settings=settings)
     result = run_sweep(jobs, args.out, data=data, workers=args.workers,
                        scheduler=args.scheduler, progress=not args.quiet)
     print(_json({"results": str(args.out), "jobs": len(jobs), "ran": result.ran,
@@ -319,7 +385,7 @@ def build_parser() -> argparse.ArgumentParser:
         sub, "fit", _cmd_fit, help="fit a Gibbs model to a data file (.npy/.npz)",
         description="Fit a Gibbs model exp(-H)/Z over a Pauli term set by minimising the "
                     "relative entropy S(rho||sigma) to the training states.",
-        epilog="examples:\n  thermoseed fit states.npz --out model.npz\n"
+        epilog="examples:\n  thermoseed fit states.npz --out model.npz --convergence-plot fit.png\n"
                "  thermoseed fit states.npz --graph grid --shape 2x3 --fields XYZ "
                "--couplings ZZ,XX,YY --l2 1e-3 --out model.npz")
     p.add_argument("data", help=".npy/.npz training data (README schema) or a measurement "
@@ -327,25 +393,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, help="model file to write (.npz)")
     p.add_argument("--kind", choices=["states", "density"], help="for ambiguous .npy arrays")
     p.add_argument("--renormalize", action="store_true", help="renormalise traces/norms")
-    p.add_argument("--graph", default="line",
-                   choices=["line", "ring", "grid", "complete", "edges"],
-                   help="coupling graph (default line; grid needs --shape, edges --edges)")
-    p.add_argument("--shape", type=_grid_shape, help="grid rows x columns, e.g. 2x3")
-    p.add_argument("--edges", type=_edge_list, help="edge list for --graph edges, e.g. 0-1,1-2")
-    p.add_argument("--fields", default="XZ", help="single-qubit letters (default XZ)")
-    p.add_argument("--couplings", type=_word_list, default=["ZZ", "XX"],
-                   help="comma-separated letter pairs on each edge (default ZZ,XX)")
-    p.add_argument("--extra", type=_word_list, default=[], help="extra Pauli labels")
-    p.add_argument("--parity", action="store_true",
-                   help="add the global X/Y parity strings and Z...Z (they see a GHZ phase)")
+    terms = _add_model_options(p, "Gibbs model",
+                               graphs=("line", "ring", "grid", "complete", "edges"))
+    terms.add_argument("--shape", type=_grid_shape, help="grid rows x columns, e.g. 2x3")
+    terms.add_argument("--edges", type=_edge_list,
+                       help="edge list for --graph edges, e.g. 0-1,1-2")
+    terms.add_argument("--extra", type=_word_list, default=[], help="extra Pauli labels")
     p.add_argument("--solver", choices=["lbfgs", "adam"], default="lbfgs",
                    help="lbfgs (exact moments) or adam (noisy moments)")
-    p.add_argument("--l2", type=_nonneg_float, default=1e-3,
-                   help="L2 penalty (default 1e-3: pure or low-rank data need one)")
     p.add_argument("--tol", type=_nonneg_float, default=1e-6, help="gradient-norm tolerance")
     p.add_argument("--max-iter", type=_positive_int, default=500, help="iteration cap")
     p.add_argument("--seed", type=_nonneg_int, default=0, help="seed of the initial point")
     p.add_argument("--checkpoint", help="checkpoint file: saved during the fit, resumed from")
+    p.add_argument("--convergence-plot", metavar="PNG",
+                   help="also write a PNG of the loss and gradient norm per iteration")
 
     p = _subcommand(
         sub, "compile", _cmd_compile, help="compile a fitted model into a parameterised circuit",
@@ -369,6 +430,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="L-BFGS iterations per start (default 300)")
     p.add_argument("--seed", type=_nonneg_int, default=0, help="seed of the starts")
     p.add_argument("--data", help="training data, for the report")
+    p.add_argument("--convergence-plot", metavar="PNG",
+                   help="also write a PNG of the compile objective per iteration")
 
     p = _subcommand(
         sub, "warm-start", _cmd_warm_start,
@@ -390,8 +453,8 @@ def build_parser() -> argparse.ArgumentParser:
                     "one JSON line per job in the results file, rerun to resume.",
         epilog="examples:\n  thermoseed sweep --sizes 2,4,6 --strategies uniform,identity_blocks "
                "--seeds 20 --out results.jsonl\n"
-               "  thermoseed sweep --sizes 4 --strategies pretrained,uniform --costs classifier "
-               "--data thermoseed-runs/magnet-phase/data.npz --out cls.jsonl")
+               "  thermoseed sweep --sizes 4,6 --strategies pretrained,uniform --costs classifier "
+               "--data 4=four.npz,6=six.npz --fields XYZ --couplings ZZ --out cls.jsonl")
     p.add_argument("--out", required=True, help="results file (.jsonl), appended and resumed")
     p.add_argument("--sizes", type=_int_list, required=True, help="qubit counts, e.g. 2,4,6")
     p.add_argument("--strategies", type=_names,
@@ -406,8 +469,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--depths", type=_int_list, help="layers per block (default: n)")
     p.add_argument("--template", choices=TEMPLATE_NAMES, default="soft",
                    help="template of both blocks of V = U(h) U(e)^dag (default soft)")
-    p.add_argument("--data", help="labelled data (a run folder's data.npz) for the "
-                                  "classifier cost and pretrained strategies")
+    p.add_argument("--data", type=_data_files,
+                   help="labelled data for the classifier cost and pretrained strategies: one "
+                        "file (e.g. a run folder's data.npz) or one per qubit count, "
+                        "4=a.npz,6=b.npz")
+    _add_model_options(p, "Gibbs model of the pre-trained starts (as in 'thermoseed fit')")
     p.add_argument("--workers", type=_positive_int, help="local processes (default all cores)")
     p.add_argument("--scheduler", help="dask scheduler address (needs the 'cluster' extra)")
 

@@ -2,10 +2,19 @@
 
 Top level: ``name``, ``title``, ``scenario`` (magnet-phase | probe-drift | neighbour-xxz),
 ``seed``; sections ``[data]``, ``[model]``, ``[compile]`` and, by scenario, ``[train]`` +
-``[plateau]`` (classification) or ``[eigensolver]`` (neighbour-xxz). Built-in recipes are
-the ``.toml`` files shipped in ``thermoseed.recipes`` and are found by name. Command-line
-overrides (``--qubits``, ``--seed``) go through the same validation as the file, so a value
-refused in a file is refused on the command line too.
+``[plateau]`` (classification) or ``[eigensolver]`` (neighbour-xxz).
+
+Classification recipes may bring their own data and circuit: ``[data] file = "x.npz"`` (labelled
+states at the recipe's qubit count), a ``[data.files]`` table ``{"4" = "a.npz", ...}`` (one
+file per qubit count) or ``[data] generator = "module:function"`` (called as
+``function(n_qubits, seed)``); relative paths are resolved against the recipe file's folder.
+``[data] shots = N`` fits the Gibbs model from N seeded randomised Pauli measurements of the
+training states instead of the exact states (0 = exact). ``[circuit] function =
+"module:function"`` with ``shape = ["depth", "n", 3]`` replaces the built-in template.
+
+Built-in recipes are the ``.toml`` files shipped in ``thermoseed.recipes`` and are found by
+name. Command-line overrides (``--qubits``, ``--seed``) go through the same validation as the
+file, so a value refused in a file is refused on the command line too.
 """
 
 from __future__ import annotations
@@ -14,7 +23,6 @@ import copy
 import dataclasses
 import hashlib
 import json
-import math
 import re
 from dataclasses import dataclass
 from importlib import resources
@@ -22,6 +30,16 @@ from pathlib import Path
 from typing import Any
 
 from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.recipes.recipe_values import (
+    MAX_QUBITS,
+    MAX_SHOTS,
+    STRATEGY_NAMES,  # noqa: F401 - re-exported: recipes name the strategies here
+    RecipeChecker,
+    circuit_values,
+    listed,
+    merged,
+    own_data_values,
+)
 
 try:  # Python >= 3.11
     import tomllib
@@ -30,21 +48,23 @@ except ModuleNotFoundError:  # pragma: no cover - Python 3.10
 
 SCENARIOS = ("magnet-phase", "probe-drift", "neighbour-xxz")
 BUILTIN = SCENARIOS
-#: Initialisation strategies a recipe may compare (names of ``bridge.plateau.probes``).
-STRATEGY_NAMES = ("pretrained", "pretrained_perturbed", "class_models", "uniform",
-                  "small_angle", "identity_blocks")
 TEMPLATE_NAMES = ("soft", "strong", "entangler", "ladder")
 GRAPH_NAMES = ("line", "ring", "complete")
 COST_NAMES = ("local", "global", "classifier")
 #: Upper bounds that keep a recipe within minutes-to-hours on a laptop (dense simulation).
-MAX_QUBITS, MAX_PLATEAU_QUBITS = 10, 12
+MAX_PLATEAU_QUBITS = 12
 MAX_SAMPLES, MAX_SEEDS, MAX_STEPS, MAX_DEPTH, MAX_ITER = 4096, 1000, 100_000, 64, 100_000
+#: ``[data]`` keys left out of ``Recipe.as_dict`` while unset, so recipes that do not use
+#: them keep their fingerprint (their run folders still resume).
+OPTIONAL_DATA = {"file": None, "files": None, "generator": None, "shots": 0}
 
 
 @dataclass(frozen=True)
 class DataSettings:
-    """``[data]``: ``qubits``; classification: ``samples``, ``test_fraction``;
-    neighbour-xxz: ``source_delta``, ``target_delta``, ``beta``."""
+    """``[data]``: ``qubits``; classification: ``samples``, ``test_fraction``, the user's own
+    data (``file``, ``files`` as ``((n, path), ...)``, or ``generator``; absolute paths) and
+    ``shots`` (0: fit the exact states); neighbour-xxz: ``source_delta``, ``target_delta``,
+    ``beta``."""
 
     qubits: int
     samples: int | None = None
@@ -52,6 +72,16 @@ class DataSettings:
     source_delta: float | None = None
     target_delta: float | None = None
     beta: float | None = None
+    file: str | None = None
+    files: tuple[tuple[int, str], ...] | None = None
+    generator: str | None = None
+    shots: int = 0
+
+    def data_files(self) -> dict[int, str]:
+        """The user's data files by qubit count (empty for generated data)."""
+        if self.file is not None:
+            return {self.qubits: self.file}
+        return dict(self.files or ())
 
 
 @dataclass(frozen=True)
@@ -115,6 +145,15 @@ class EigensolverSettings:
 
 
 @dataclass(frozen=True)
+class CircuitSettings:
+    """``[circuit]``: the user's quantum function ``module:function`` taking
+    ``(params, wires)`` and its parameter shape (ints and the words ``"n"``, ``"depth"``)."""
+
+    function: str
+    shape: tuple[int | str, ...]
+
+
+@dataclass(frozen=True)
 class Recipe:
     """A validated recipe; build it with ``load_recipe`` or ``validate_recipe``."""
 
@@ -128,10 +167,14 @@ class Recipe:
     train: TrainSettings | None = None
     plateau: PlateauSettings | None = None
     eigensolver: EigensolverSettings | None = None
+    circuit: CircuitSettings | None = None
 
     def as_dict(self) -> dict[str, Any]:
-        """Plain JSON-able form (run.json); sections that do not apply are left out."""
+        """Plain JSON-able form (run.json); sections that do not apply and unset optional
+        data keys are left out."""
         out = dataclasses.asdict(self)
+        out["data"] = {k: v for k, v in out["data"].items()
+                       if k not in OPTIONAL_DATA or v != OPTIONAL_DATA[k]}
         return {k: v for k, v in out.items() if v is not None}
 
     def fingerprint(self) -> str:
@@ -159,6 +202,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
                         "learning_rate": 0.05, "tolerance": 0.01},
     },
 }
+DEFAULTS["magnet-phase"]["data"].update(OPTIONAL_DATA)
 DEFAULTS["probe-drift"] = copy.deepcopy(DEFAULTS["magnet-phase"])
 DEFAULTS["probe-drift"]["data"]["qubits"] = 3
 for _scenario in DEFAULTS.values():
@@ -203,12 +247,13 @@ def load_recipe(source, *, qubits: int | None = None, seed: int | None = None,
                     {k: v for k, v in values.items() if k in defaults[section]})
     where = str(path) + (" with command-line overrides" if qubits is not None or seed is not None
                          else "")
-    return validate_recipe(raw, where=where)
+    return validate_recipe(raw, where=where, folder=path.parent)
 
 
-def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
+def validate_recipe(raw: dict, *, where: str = "recipe", folder=None) -> Recipe:
     """Fill defaults, check names, types and ranges; unknown keys are errors (typos stop
-    early). Returns the typed ``Recipe``."""
+    early). Data file paths are resolved against ``folder`` (the recipe file's folder;
+    default the working directory) and must exist. Returns the typed ``Recipe``."""
     if not isinstance(raw, dict):
         raise ThermoseedError(f"{where}: a recipe is a TOML table, got {type(raw).__name__}")
     scenario = raw.get("scenario")
@@ -216,10 +261,12 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
         raise ThermoseedError(f"{where}: scenario must be one of {SCENARIOS}, got {scenario!r}")
     defaults = DEFAULTS[scenario]
     top = {"name", "title", "scenario", "seed"} | set(defaults)
+    if "train" in defaults:
+        top |= {"circuit"}
     unknown = set(raw) - top
     if unknown:
         raise ThermoseedError(f"{where}: unknown keys {sorted(unknown)}; allowed: {sorted(top)}")
-    sections = {section: _merge(raw.get(section, {}), values, section, where)
+    sections = {section: merged(raw.get(section, {}), values, section, where)
                 for section, values in defaults.items()}
     name = raw.get("name", scenario)
     if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}", name) \
@@ -230,7 +277,7 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
     seed = raw.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise ThermoseedError(f"{where}: seed = {seed!r} must be a non-negative integer")
-    check = _Checker(where)
+    check = RecipeChecker(where)
     data = sections["data"]
     n = check.integer("data", "qubits", data["qubits"], 2, MAX_QUBITS)
     comp = sections["compile"]
@@ -261,16 +308,25 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
     check.integer("data", "samples", data["samples"], 4, MAX_SAMPLES)
     check.number("data", "test_fraction", data["test_fraction"], low=0.0, high=1.0,
                  open_low=True, open_high=True)
+    check.integer("data", "shots", data["shots"], 0, MAX_SHOTS)
+    recipe = dataclasses.replace(recipe,
+                                 data=DataSettings(**own_data_values(data, n, check, folder)))
+    if "circuit" in raw:
+        if "template" in raw.get("compile", {}):
+            raise ThermoseedError(f"{where}: [compile] template and [circuit] both name the "
+                                  "circuit; keep one of them")
+        function, shape = circuit_values(raw["circuit"], check)
+        recipe = dataclasses.replace(recipe, circuit=CircuitSettings(function, shape))
     train, plateau = sections["train"], sections["plateau"]
     sizes = plateau["sizes"]
     if not isinstance(sizes, list) or len(sizes) < 2 or len(set(sizes)) != len(sizes):
         raise ThermoseedError(f"{where}: [plateau] sizes = {sizes!r} needs >= 2 distinct "
                               f"integers in 2..{MAX_PLATEAU_QUBITS}")
-    return dataclasses.replace(
+    recipe = dataclasses.replace(
         recipe,
         train=TrainSettings(
             sizes=tuple(sorted({n, *(check.integer("train", "sizes", s, 2, MAX_QUBITS)
-                                     for s in _list(train["sizes"], "train", "sizes", where))})),
+                                     for s in listed(train["sizes"], "train", "sizes", where))})),
             strategies=check.strategies("train", train["strategies"]),
             seeds=check.integer("train", "seeds", train["seeds"], 1, MAX_SEEDS),
             steps=check.integer("train", "steps", train["steps"], 1, MAX_STEPS),
@@ -286,43 +342,37 @@ def validate_recipe(raw: dict, *, where: str = "recipe") -> Recipe:
             costs=tuple(check.choice("plateau", "costs", c, COST_NAMES)
                         for c in check.nonempty("plateau", "costs", plateau["costs"]))),
     )
+    _check_data_sizes(recipe, check)
+    return recipe
 
 
-def _list(value, section: str, key: str, where: str) -> list:
-    if not isinstance(value, list):
-        raise ThermoseedError(f"{where}: [{section}] {key} must be a list")
-    return value
+#: Strategies whose probes need labelled data (besides the classifier cost and training).
+DATA_STRATEGIES = ("pretrained", "pretrained_perturbed", "class_models")
 
 
-def _merge(given, values: dict, section: str, where: str) -> dict:
-    """Defaults of ``section`` updated by the file's table; unknown keys and kinds refused."""
-    if not isinstance(given, dict):
-        raise ThermoseedError(f"{where}: [{section}] must be a table")
-    bad = set(given) - set(values)
-    if bad:
+def data_sizes(recipe: Recipe) -> tuple[int, ...]:
+    """Qubit counts at which a classification recipe needs labelled data: its own size,
+    every training size and the plateau sizes whose probes see data."""
+    sizes = {recipe.data.qubits, *recipe.train.sizes}
+    plateau = recipe.plateau
+    if "classifier" in plateau.costs or set(plateau.strategies) & set(DATA_STRATEGIES):
+        sizes |= set(plateau.sizes)
+    return tuple(sorted(sizes))
+
+
+def _check_data_sizes(recipe: Recipe, check: RecipeChecker) -> None:
+    """Files named for some sizes must cover every size that needs data."""
+    files = recipe.data.data_files()
+    missing = [m for m in data_sizes(recipe) if files and m not in files]
+    if missing:
         raise ThermoseedError(
-            f"{where}: unknown keys {sorted(bad)} in [{section}]; allowed: {sorted(values)}")
-    merged = copy.deepcopy(values)
-    for key, value in given.items():
-        default = values[key]
-        if default is not None and not _same_kind(value, default):
-            raise ThermoseedError(
-                f"{where}: [{section}] {key} = {value!r} should be a "
-                f"{type(default).__name__} like {default!r}")
-        merged[key] = value
-    return merged
+            f"{check.where}: the recipe needs labelled data at n = "
+            f"{', '.join(map(str, missing))} ([train] sizes, [plateau] sizes with data-using "
+            f"strategies or costs) but [data] names files for n = "
+            f"{', '.join(map(str, sorted(files)))}; add files for those sizes or drop them")
 
 
-def _same_kind(value, default) -> bool:
-    if isinstance(default, bool):
-        return isinstance(value, bool)
-    if isinstance(default, float):
-        return isinstance(value, (int, float)) and not isinstance(value, bool)
-    return isinstance(value, type(default)) and not (
-        isinstance(value, bool) and not isinstance(default, bool))
-
-
-def _model_settings(model: dict, check: _Checker) -> ModelSettings:
+def _model_settings(model: dict, check: RecipeChecker) -> ModelSettings:
     fields = model["fields"]
     if not isinstance(fields, str) or set(fields) - set("XYZ"):
         raise ThermoseedError(f"{check.where}: [model] fields = {fields!r} must be letters "
@@ -336,51 +386,3 @@ def _model_settings(model: dict, check: _Checker) -> ModelSettings:
                          fields=fields, couplings=couplings,
                          l2=check.number("model", "l2", model["l2"], low=0.0),
                          parity=model["parity"])
-
-
-class _Checker:
-    """Range checks with one message style: ``<file>: [section] key = value ...``."""
-
-    def __init__(self, where: str):
-        self.where = where
-
-    def integer(self, section: str, key: str, value, low: int, high: int) -> int:
-        if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
-            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} must be an "
-                                  f"integer in {low}..{high}")
-        return value
-
-    def number(self, section: str, key: str, value, *, low: float | None = None,
-               high: float | None = None, open_low: bool = False,
-               open_high: bool = False) -> float:
-        ok = isinstance(value, (int, float)) and not isinstance(value, bool) and \
-            math.isfinite(value)
-        if ok and low is not None:
-            ok = value > low if open_low else value >= low
-        if ok and high is not None:
-            ok = value < high if open_high else value <= high
-        if not ok:
-            lo = "" if low is None else f"{'>' if open_low else '>='} {low:g}"
-            hi = "" if high is None else f"{'<' if open_high else '<='} {high:g}"
-            bounds = " and ".join(b for b in (lo, hi) if b) or "finite"
-            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} must be a "
-                                  f"finite number {bounds}")
-        return float(value)
-
-    def choice(self, section: str, key: str, value, allowed) -> str:
-        if value not in allowed:
-            raise ThermoseedError(f"{self.where}: [{section}] {key} = {value!r} is not one of "
-                                  f"{', '.join(allowed)}")
-        return value
-
-    def nonempty(self, section: str, key: str, values) -> list:
-        if not isinstance(values, list) or not values:
-            raise ThermoseedError(f"{self.where}: [{section}] {key} must be a non-empty list")
-        return values
-
-    def strategies(self, section: str, values) -> tuple[str, ...]:
-        names = [self.choice(section, "strategies", v, STRATEGY_NAMES)
-                 for v in self.nonempty(section, "strategies", values)]
-        if len(set(names)) != len(names):
-            raise ThermoseedError(f"{self.where}: [{section}] strategies lists a name twice")
-        return tuple(names)

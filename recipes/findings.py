@@ -1,10 +1,22 @@
 """Plain-words findings for recipe reports, stated from the measured numbers.
 
-Every sentence is generated from the records; nothing here assumes pre-training helps.
+Every sentence is generated from the records; nothing here assumes pre-training helps, and no
+conclusion is drawn from a stage that failed or fell below its quality threshold:
+
+- fit: the loss must be finite, the optimum finite (not ``diverging``: rank-deficient data on
+  the edge of the model family at l2 = 0) and the optimiser converged (gradient norm within
+  tolerance);
+- compile: fidelity between the compiled state and the Gibbs model at least
+  ``MIN_COMPILE_FIDELITY`` (a compile that stopped early but got there is read as it stands,
+  and said so).
+
+When the chain falls short, every start built from it (``PRETRAINED``) is listed with its
+numbers but marked "not assessed", and the report says which stage fell short and why.
 """
 
 from __future__ import annotations
 
+import math
 from collections import defaultdict
 
 import numpy as np
@@ -22,12 +34,97 @@ def _fmt_reach(value, target: float) -> str:
     return f"held-out accuracy {target:.0%} reached after {value:g} steps (median)"
 
 
+#: Fidelity F(compiled, Gibbs model) below which the compile is taken to have failed: the
+#: circuit then does not prepare the fitted model, so nothing it starts says anything about
+#: pre-training (our own bar: a tenth of the weight lost).
+MIN_COMPILE_FIDELITY = 0.9
+#: Starts built from the pre-training chain (judged only when the chain held its thresholds).
+PRETRAINED = ("pretrained", "pretrained_perturbed", "class_models")
+
+
+def _number(value) -> float:
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return float("nan")
+
+
+def stage_problems(run: dict) -> list[str]:
+    """Plain sentences, one per pre-training stage that failed or fell below its threshold
+    (empty when the chain can be judged)."""
+    fit, comp = run.get("fit"), run.get("compile")
+    problems = []
+    if not fit:
+        problems.append("the fit stage did not finish")
+    else:
+        loss = _number(fit.get("relative_entropy", fit.get("cross_entropy")))
+        if not math.isfinite(loss):
+            problems.append(f"the fit stage ended with loss {loss} (not finite)")
+        elif fit.get("diverging"):
+            problems.append("the fit stage diverges (the data sit on the edge of the model "
+                            "family, |theta| grows without bound): set [model] l2 > 0")
+        elif not fit.get("converged"):
+            problems.append(f"the fit stage stopped unconverged after {fit.get('iterations')} "
+                            f"iterations (|grad| = {_number(fit.get('grad_norm')):.2g})")
+    if not comp:
+        problems.append("the compile stage did not finish")
+    else:
+        fidelity = _number(comp.get("model_fidelity"))
+        if not fidelity >= MIN_COMPILE_FIDELITY:
+            problems.append(f"the compile stage reached fidelity {fidelity:.2f} < "
+                            f"{MIN_COMPILE_FIDELITY:g}")
+    return problems
+
+
+def _quality_lines(run: dict) -> list[str]:
+    """The stage-quality paragraph opening every recipe report (and, for fits from
+    measurement records, the one exception to the noise-free limits)."""
+    shots = run.get("fit", {}).get("shots")
+    noise = [f"Exception to the limits above: the Gibbs model was fitted from {shots} "
+             "simulated measurement shots, so its coefficients carry shot noise (standard "
+             "errors in the pre-training section).", ""] if shots else []
+    problems = stage_problems(run)
+    if problems:
+        return noise + [f"Stage quality: {'; '.join(problems)}: no conclusion about the "
+                        "pre-trained start is drawn; its numbers below are listed but not "
+                        "assessed.", ""]
+    comp = run["compile"]
+    text = (f"Stage quality: the fit converged; the compile reached fidelity "
+            f"{_number(comp.get('model_fidelity')):.3f} >= {MIN_COMPILE_FIDELITY:g} to the "
+            "model")
+    if not comp.get("converged", True):
+        text += " (it stopped before its gradient tolerance; read as it stands)"
+    return noise + [text + ".", ""]
+
+
+def _coefficient_lines(run: dict) -> list[str]:
+    """Fitted coefficients with standard errors (fits from measurement records only)."""
+    fit = run.get("fit", {})
+    rows = fit.get("coefficients")
+    if not rows:
+        return []
+    lines = [f"### Fitted coefficients from {fit['shots']} measurement shots", "",
+             "Each coefficient with its standard error (Kubo-Mori covariance of the moment "
+             "noise); the moment residual (data moment minus model moment) in standard errors "
+             f"should mostly lie within +-2. Largest |residual|: "
+             f"{fit['max_abs_residual_in_stderr']:.2f} standard errors.", "",
+             "| term | coefficient | standard error | moment residual (standard errors) |",
+             "|---|---|---|---|"]
+    lines += [f"| {r['term']} | {r['coef']:+.4f} | {r['stderr']:.4f} | "
+              f"{r['residual_in_stderr']:+.2f} |" for r in rows]
+    return lines + [""]
+
+
 def _chain_lines(run: dict) -> list[str]:
     fit, comp = run.get("fit", {}), run.get("compile", {})
+    if "cross_entropy" in fit:
+        loss = (f"cross entropy theta.m + log Z = {fit['cross_entropy']:.4f} nats from "
+                f"{fit['shots']} measurement shots (records.npz)")
+    else:
+        loss = f"S(rho||sigma) = {_number(fit.get('relative_entropy')):.4f} nats"
     return [
         "## Pre-training chain", "",
-        f"- Gibbs model: {fit.get('terms')} Pauli terms, S(rho||sigma) = "
-        f"{fit.get('relative_entropy', float('nan')):.4f} nats after {fit.get('iterations')} "
+        f"- Gibbs model: {fit.get('terms')} Pauli terms, {loss} after {fit.get('iterations')} "
         f"L-BFGS iterations (converged: {fit.get('converged')}).",
         f"- Compile ({comp.get('latent_states')} latent basis states): S(sigma~||sigma) = "
         f"{comp.get('objective', float('nan')):.4f} nats, fidelity to the model "
@@ -37,6 +134,9 @@ def _chain_lines(run: dict) -> list[str]:
         "- Files: model.npz (Gibbs model), compile.npz (circuit parameters and report), "
         "warm_start.npz (encoder = compiled parameters, head = identity), results.jsonl "
         "(one record per sweep job), run.json (versions, seeds, settings, timings).", "",
+        *_coefficient_lines(run),
+        "![fit loss and gradient norm per iteration](fit_history.png)", "",
+        "![compile objective per iteration](compile_history.png)", "",
     ]
 
 
@@ -58,7 +158,8 @@ def _tuning(start: float, last: float, best: float, held_out: int) -> str:
     return f"fine-tuning {verdict} the step-0 accuracy ({start:.2f} -> {last:.2f}){extra}"
 
 
-def _size_lines(n: int, summaries: dict, rules: dict | None, target: float) -> list[str]:
+def _size_lines(n: int, summaries: dict, rules: dict | None, target: float,
+                judged: bool = True) -> list[str]:
     lines = [f"### n = {n}", ""]
     held_out = int(rules["held_out"]) if rules else 0
     if rules:
@@ -78,12 +179,16 @@ def _size_lines(n: int, summaries: dict, rules: dict | None, target: float) -> l
                 f"is the way out.")
         lines.append("")
     for name, s in sorted(summaries.items()):
+        mark = "" if judged or name not in PRETRAINED else " (not assessed: stage quality)"
         lines.append(
-            f"- {_style(name)[0]}: held-out accuracy {s.start_accuracy:.2f} at step 0; "
+            f"- {_style(name)[0]}{mark}: held-out accuracy {s.start_accuracy:.2f} at step 0; "
             f"{_fmt_reach(s.steps_to_target, target)} ({s.reached}/{s.n_seeds} seeds); "
             f"{_tuning(s.start_accuracy, s.last_accuracy, s.best_accuracy, held_out)}.")
     mine = summaries.get("class_models")
-    if mine is not None and len(summaries) > 1:
+    if mine is not None and len(summaries) > 1 and not judged:
+        lines += ["", f"Class-model warm start at n = {n}: not compared with the other starts "
+                  "(the pre-training stages fell short, see Stage quality)."]
+    elif mine is not None and len(summaries) > 1:
         others = {k: s.steps_to_target for k, s in summaries.items() if k != "class_models"}
         known = [v for v in others.values() if v is not None]
         if mine.steps_to_target is None:
@@ -102,7 +207,8 @@ def _size_lines(n: int, summaries: dict, rules: dict | None, target: float) -> l
 def classification_findings(recipe: Recipe, run: dict, records: list) -> str:
     """Markdown 'Findings' section for a classification recipe."""
     target = recipe.train.target_accuracy
-    lines = [f"# {recipe.title}", "", LIMITS, "", "## In plain words", ""]
+    judged = not stage_problems(run)
+    lines = [f"# {recipe.title}", "", LIMITS, "", "## In plain words", "", *_quality_lines(run)]
     groups = defaultdict(list)
     for curve in train_curves(records):
         groups[(curve.n_qubits, curve.strategy)].append(curve)
@@ -111,7 +217,7 @@ def classification_findings(recipe: Recipe, run: dict, records: list) -> str:
         by_size[n][strategy] = summarize_curves(curves, target=target)
     rules = run.get("class_rules", {})
     for n in sorted(by_size):
-        lines += _size_lines(n, by_size[n], rules.get(str(n)), target)
+        lines += _size_lines(n, by_size[n], rules.get(str(n)), target, judged)
     probes = probe_results(records)
     if probes:
         lines += ["Gradient variance decay (slope of log2 mean variance per added qubit, "
@@ -119,8 +225,11 @@ def classification_findings(recipe: Recipe, run: dict, records: list) -> str:
         fits = decay_rates(probes, statistic="mean_var", seed=recipe.seed)
         for key, fit in sorted(fits.items()):
             trend = "decays" if fit.high < 0 else "grows" if fit.low > 0 else "shows no clear trend"
+            verdict = f"the variance {trend}"
+            if not judged and key.strategy in PRETRAINED:
+                verdict = "not assessed (stage quality)"
             lines.append(f"- {_style(key.strategy)[0]}, {key.cost} cost: slope {fit.slope:+.2f} "
-                         f"[{fit.low:+.2f}, {fit.high:+.2f}] — the variance {trend} over "
+                         f"[{fit.low:+.2f}, {fit.high:+.2f}] — {verdict} over "
                          f"n = {min(fit.n_values)}..{max(fit.n_values)}.")
     lines.append("")
     return "\n".join(lines + _chain_lines(run))
@@ -132,8 +241,9 @@ def eigensolver_findings(recipe: Recipe, run: dict, runs: list, e0: float, targe
     by = defaultdict(list)
     for r in runs:
         by[r["strategy"]].append(r)
+    judged = not stage_problems(run)
     lines = [
-        f"# {recipe.title}", "", LIMITS, "", "## In plain words", "",
+        f"# {recipe.title}", "", LIMITS, "", "## In plain words", "", *_quality_lines(run),
         f"A Gibbs model fitted to the thermal state of the {d.qubits}-qubit XXZ chain at "
         f"anisotropy {d.source_delta} (beta = {d.beta}) was compiled into a circuit; that "
         f"circuit seeded a variational eigensolver for anisotropy {d.target_delta}. Exact "
@@ -147,8 +257,9 @@ def eigensolver_findings(recipe: Recipe, run: dict, runs: list, e0: float, targe
         med = f"{np.median(steps):g}" if len(steps) * 2 > len(rs) else "not reached"
         first = np.median([r["energies"][0] for r in rs])
         last = np.median([r["energies"][-1] for r in rs])
-        lines.append(f"| {_style(name)[0]} | {len(rs)} | {first:.4f} | {last:.4f} | {med} | "
-                     f"{len(steps)}/{len(rs)} |")
+        mark = "" if judged or name not in PRETRAINED else " (not assessed)"
+        lines.append(f"| {_style(name)[0]}{mark} | {len(rs)} | {first:.4f} | {last:.4f} | "
+                     f"{med} | {len(steps)}/{len(rs)} |")
     lines += ["", "![energy per step](energies.png)", ""]
     return "\n".join(lines + _chain_lines(run))
 

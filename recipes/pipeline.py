@@ -6,10 +6,17 @@ each initialisation strategy -> gradient probes over qubit counts -> report. Nei
 thermal data at one anisotropy -> fit -> compile -> eigensolver at the neighbouring
 anisotropy from each strategy -> report.
 
+Classification recipes take their data from the scenario, the user's files or generator and
+their circuit from the template registry or the user's ``[circuit]`` (``recipes.sources``);
+the user's data and circuit are loaded and checked before the run folder is touched. With
+``[data] shots = N`` the Gibbs model is fitted from N seeded randomised Pauli measurements of
+the training states (``records.npz``); the report gives each coefficient's standard error.
+
 Run folder: ``data.npz``, ``model.npz``, ``compile.npz``, ``warm_start.npz``,
 ``results.jsonl`` (sweep records; classification), ``energies.json`` (neighbour-xxz),
-PNG plots, ``report.md`` and ``run.json`` (versions, seeds, settings, timings). Rerunning
-the same recipe into the same folder resumes: finished sweep jobs are skipped.
+``fit_history.png`` and ``compile_history.png`` (convergence), other PNG plots, ``report.md``
+and ``run.json`` (versions, seeds, settings, timings). Rerunning the same recipe into the
+same folder resumes: finished sweep jobs are skipped.
 """
 
 from __future__ import annotations
@@ -23,11 +30,11 @@ from typing import Any
 
 import numpy as np
 
-from thermoseed.bridge.ansatz import make_ansatz
+from thermoseed.bridge.ansatz import Ansatz, make_ansatz
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.compile_record import save_compile
 from thermoseed.bridge.plateau.report import write_report
-from thermoseed.bridge.plateau.strategies import PretrainSettings
+from thermoseed.bridge.plateau.strategies import PretrainSettings, zero_is_identity
 from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
 from thermoseed.bridge.warm_starts import save_warm_start, warm_start
 from thermoseed.pretrain import (
@@ -38,8 +45,11 @@ from thermoseed.pretrain import (
 )
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.files import atomic_save_npz, atomic_write_bytes, json_text
-from thermoseed.pretrain.labelled import LabelledData, save_labelled, split_labelled
+from thermoseed.pretrain.labelled import LabelledData, save_labelled
+from thermoseed.pretrain.records import save_records, simulate_shots
 from thermoseed.recipes.config import Recipe
+from thermoseed.recipes.plots import plot_compile_history, plot_fit_history
+from thermoseed.recipes.sources import recipe_circuit, recipe_data
 
 RUN_FILE = "run.json"
 #: Strategies whose circuits are compiled for the classification task's readout.
@@ -118,22 +128,6 @@ class _Stage:
 # ------------------------------------------------------------------------------ data
 
 
-def classification_data(scenario: str, n: int, samples: int, test_fraction: float,
-                        seed: int) -> LabelledData:
-    """Seeded scenario data at ``n`` qubits, split into train / test (stratified)."""
-    if scenario == "magnet-phase":
-        from thermoseed.recipes.scenarios.magnet_phase import magnet_phase_data
-
-        batch = magnet_phase_data(n, samples, seed=seed)
-        states = batch.states
-    else:
-        from thermoseed.recipes.scenarios.probe_drift import probe_drift_data
-
-        batch = probe_drift_data(n, samples, seed=seed)
-        states = batch.density
-    return split_labelled(states, batch.labels, test_fraction=test_fraction, seed=seed)
-
-
 def pretrain_settings(recipe: Recipe) -> PretrainSettings:
     """The recipe's model and compile settings in the form sweeps carry to their workers."""
     m, comp = recipe.model, recipe.compile
@@ -164,43 +158,83 @@ def _training_data(data: LabelledData):
 # ------------------------------------------------------------------------------ stages
 
 
-def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: bool):
-    """Fit, compile and warm start at the recipe's size; writes the three files."""
+def downstream_ansatz(template, n_qubits: int, depth: int) -> Ansatz:
+    """One block of the downstream circuit: a built-in template name or a user's family."""
+    if isinstance(template, str):
+        return make_ansatz(template, n_qubits, depth)
+    return template.ansatz(n_qubits, depth)
+
+
+def _fit_summary(model: VisibleGibbsModel, shots: int) -> dict:
+    """run.json's fit entry; from records also each coefficient with its standard error and
+    the moment residual in standard errors."""
+    fit = {"iterations": model.n_iter_, "converged": bool(model.converged_),
+           "diverging": bool(model.diverging_), "grad_norm": float(model.grad_norm_),
+           "terms": len(model.terms_)}
+    if not shots:
+        return {"relative_entropy": model.loss_, **fit}
+    rows = zip(model.terms_.labels, model.coef_, model.coef_stderr_, model.moment_zscores_,
+               strict=True)
+    return {"cross_entropy": model.loss_, "shots": shots, **fit,
+            "max_abs_residual_in_stderr": float(np.abs(model.moment_zscores_).max()),
+            "coefficients": [{"term": term, "coef": float(c), "stderr": float(se),
+                              "residual_in_stderr": float(z)} for term, c, se, z in rows]}
+
+
+def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: bool,
+                    template=None):
+    """Fit (from the exact training states, or from ``[data] shots`` simulated measurement
+    records of them), compile, warm start at the recipe's size; writes the files and the
+    convergence plots."""
     n = terms.n_qubits
-    comp = recipe.compile
+    comp, shots = recipe.compile, recipe.data.shots
     with _Stage(run, out, "fit"):
+        fit_data = td
+        if shots:
+            fit_data = simulate_shots(td.rho, shots, seed=recipe.seed)
+            save_records(out / "records.npz", fit_data)
+            run["files"]["records"] = "records.npz"
         model = VisibleGibbsModel(terms, l2=recipe.model.l2, seed=recipe.seed,
-                                  progress=progress).fit(td)
+                                  progress=progress).fit(fit_data)
         model.save(out / "model.npz")
-    unit = make_ansatz(comp.template, n, comp.depth_for(n))
+    unit = downstream_ansatz(comp.template if template is None else template, n,
+                             comp.depth_for(n))
     with _Stage(run, out, "compile"):
         result = compile_latent(model, unit, restarts=comp.restarts, max_iter=comp.max_iter,
                                 seed=recipe.seed, data=td.rho, progress=progress)
         save_compile(result, out / "compile.npz")
-    save_warm_start(out / "warm_start.npz", warm_start(result, head=unit), unit, unit,
-                    strategy="pretrained", model_fidelity=result.report.model_fidelity)
-    run["fit"] = {"relative_entropy": model.loss_, "iterations": model.n_iter_,
-                  "converged": bool(model.converged_), "terms": len(terms)}
-    run["compile"] = {**result.report._asdict(), "latent_states": int(len(result.latent.basis))}
+    head = unit if zero_is_identity(unit) else None  # else: the encoder's parameters only
+    params = warm_start(result, head=head, head_identity=None if head is None
+                        else np.zeros(unit.shape))
+    save_warm_start(out / "warm_start.npz", params, unit, head, strategy="pretrained",
+                    model_fidelity=result.report.model_fidelity)
+    plot_fit_history(model.history_, out / "fit_history.png")
+    plot_compile_history(result.history, out / "compile_history.png",
+                         floor=result.report.floor)
+    run["fit"] = _fit_summary(model, shots)
+    run["compile"] = {**result.report._asdict(), "latent_states": int(len(result.latent.basis)),
+                      "iterations": len(result.history)}
     run["files"].update({"model": "model.npz", "compile": "compile.npz",
-                         "warm_start": "warm_start.npz"})
+                         "warm_start": "warm_start.npz", "fit_plot": "fit_history.png",
+                         "compile_plot": "compile_history.png"})
     return model, result
 
 
 def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
-                       workers: int | None):
-    data_cfg, comp = recipe.data, recipe.compile
-    n, seed = data_cfg.qubits, recipe.seed
+                       workers: int | None, data: dict[int, LabelledData] | None, template):
+    """The classification stages on ``data`` (``recipe_data``; None: made here) with the
+    downstream ``template`` (``recipe_circuit``)."""
+    comp = recipe.compile
+    n, seed = recipe.data.qubits, recipe.seed
     plateau, train = recipe.plateau, recipe.train
-    sizes = sorted(set(plateau.sizes) | set(train.sizes))
     with _Stage(run, out, "data"):
-        data = {m: classification_data(recipe.scenario, m, data_cfg.samples,
-                                       data_cfg.test_fraction, seed + m) for m in sizes}
+        data = recipe_data(recipe) if data is None else data
         main = data[n]
         save_labelled(main, out / "data.npz")
     run["files"]["data"] = "data.npz"
     settings = pretrain_settings(recipe)
-    _pretrain_chain(recipe, out, run, settings.terms(n), _training_data(main), progress)
+    _pretrain_chain(recipe, out, run, settings.terms(n), _training_data(main), progress,
+                    template)
     with _Stage(run, out, "rules"):
         run["class_rules"] = {str(m): class_rule_accuracies(data[m], settings)
                               for m in train.sizes}
@@ -208,7 +242,7 @@ def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
     jobs = []
     for m in train.sizes:
         jobs += make_grid([m], train.strategies, seeds, task="training",
-                          depths=[comp.depth_for(m)], template=comp.template,
+                          depths=[comp.depth_for(m)], template=template,
                           steps=train.steps, learning_rate=train.learning_rate,
                           settings=settings)
     for m in plateau.sizes:
@@ -217,7 +251,7 @@ def run_classification(recipe: Recipe, out: Path, run: dict, progress: bool,
             costs = [c for c in plateau.costs if strategy not in LABEL_AWARE or
                      c == "classifier"]
             jobs += make_grid([m], [strategy], range(seed, seed + plateau.seeds), costs=costs,
-                              depths=[comp.depth_for(m)], template=comp.template,
+                              depths=[comp.depth_for(m)], template=template,
                               settings=settings)
     with _Stage(run, out, "sweep"):
         result = run_sweep(jobs, out / "results.jsonl", data=data,
@@ -271,14 +305,21 @@ def run_eigensolver_recipe(recipe: Recipe, out: Path, run: dict, progress: bool)
 
 def run_recipe(recipe: Recipe, out, *, progress: bool = True,
                workers: int | None = None) -> dict[str, Any]:
-    """Run a validated recipe (``load_recipe``) into folder ``out``; returns run.json's data."""
+    """Run a validated recipe (``load_recipe``) into folder ``out``; returns run.json's data.
+    The data and circuit are loaded and checked first: a bad file, generator or circuit
+    stops the run before the folder is touched."""
     out = Path(out)
+    classification = recipe.scenario != "neighbour-xxz"
+    if classification:  # the user's own inputs first; the scenario's data in its stage
+        template = recipe_circuit(recipe)
+        own = recipe.data.data_files() or recipe.data.generator is not None
+        data = recipe_data(recipe) if own else None
     run = _claim_folder(out, recipe)
     start = time.perf_counter()
-    if recipe.scenario == "neighbour-xxz":
-        run_eigensolver_recipe(recipe, out, run, progress)
+    if classification:
+        run_classification(recipe, out, run, progress, workers, data, template)
     else:
-        run_classification(recipe, out, run, progress, workers)
+        run_eigensolver_recipe(recipe, out, run, progress)
     run["timings"]["total"] = round(time.perf_counter() - start, 3)
     run["status"] = "finished"
     _write_json(out / RUN_FILE, run)

@@ -33,6 +33,7 @@ from pennylane import numpy as pnp
 
 from thermoseed.bridge.ansatz import Ansatz, make_ansatz
 from thermoseed.bridge.classifier import DownstreamCircuit, train_classifier
+from thermoseed.bridge.families import CircuitFamily
 from thermoseed.bridge.plateau.gradients import CircuitGradient, active_mask
 from thermoseed.bridge.plateau.strategies import PretrainSettings, Strategy, make_strategy
 from thermoseed.pretrain.checks import integer_in, seed_value
@@ -45,9 +46,13 @@ COSTS = ("local", "global", "classifier")
 # ---------------------------------------------------------------------------- circuits
 
 
-def probe_circuit(template: str | Ansatz, n_qubits: int, depth: int) -> Ansatz:
+def probe_circuit(template: str | CircuitFamily | Ansatz, n_qubits: int,
+                  depth: int) -> Ansatz:
     """The ansatz U of ``V = U(h) U(e)^dag``: a built-in template name with ``depth`` layers,
-    or the user's Ansatz as it is (``depth`` is then only a label in the results)."""
+    the user's ``CircuitFamily`` at (n_qubits, depth), or the user's fixed-size Ansatz as it
+    is (``depth`` is then only a label in the results)."""
+    if isinstance(template, CircuitFamily):
+        return template.ansatz(n_qubits, depth)
     if isinstance(template, Ansatz):
         if template.n_wires != n_qubits:
             raise ThermoseedError(f"ansatz acts on {template.n_wires} wires, not n = {n_qubits}")
@@ -111,9 +116,10 @@ def _classifier_value_and_grad(circuit, params: np.ndarray, data: LabelledData):
 
 
 def probe_seeds(strategy: str | Strategy, n_qubits: int, depth: int, cost: str = "local",
-                seeds=(0,), *, template: str | Ansatz = "soft", scale: float | None = None,
-                data: LabelledData | None = None, settings: PretrainSettings | None = None,
-                readout: tuple = (0,), method: str = "auto") -> list[ProbeResult]:
+                seeds=(0,), *, template: str | CircuitFamily | Ansatz = "soft",
+                scale: float | None = None, data: LabelledData | None = None,
+                settings: PretrainSettings | None = None, readout: tuple = (0,),
+                method: str = "auto") -> list[ProbeResult]:
     """Gradient ``dC/dphi`` of ``cost`` at the initialisation ``strategy`` draws, per seed.
 
     ``V = U(h) U(e)^dag`` with U = ``template`` (``depth`` layers on ``n_qubits`` wires); see
@@ -173,7 +179,8 @@ class TrainCurve(NamedTuple):
 
 def train_curve(strategy: str | Strategy, n_qubits: int, depth: int, seed: int,
                 data: LabelledData, *, steps: int = 50, learning_rate: float = 0.05,
-                batch_size: int | None = None, template: str | Ansatz = "soft",
+                batch_size: int | None = None,
+                template: str | CircuitFamily | Ansatz = "soft",
                 scale: float | None = None, settings: PretrainSettings | None = None,
                 readout: tuple = (0,)) -> TrainCurve:
     """Train the downstream circuit from ``strategy``'s initialisation for ``seed`` with

@@ -204,6 +204,22 @@ def plot_sizes(summaries: Sequence[CurveSummary], path) -> Path:
     return _save(fig, path)
 
 
+def circuit_lines(records: Sequence[dict]) -> list[str]:
+    """Markdown lines naming the user's own circuits in ``records`` with their fingerprint
+    per qubit count (built-in templates have none), or no lines."""
+    prints: dict[str, dict[int, str]] = defaultdict(dict)
+    for rec in records:
+        job = rec["job"]
+        if job.get("circuit"):
+            prints[job["template"]][job["n_qubits"]] = job["circuit"]
+    if not prints:
+        return []
+    named = "; ".join(f"`{name}` (" + ", ".join(f"n = {n}: {fp}" for n, fp
+                                                   in sorted(by_n.items())) + ")"
+                      for name, by_n in sorted(prints.items()))
+    return [f"Circuits of your own, fingerprint of the gate sequence per size: {named}.", ""]
+
+
 def write_report(records: Sequence[dict], folder, *, title: str = "Plateau comparison",
                  target: float = 0.9, n_boot: int = 1000, seed: int = 0,
                  preamble: str = "") -> Path:
@@ -219,6 +235,7 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
     # one title and one limits statement per report: a preamble brings its own
     parts = [preamble, f"## {title}", ""] if preamble else [f"# {title}", "", LIMITS, ""]
     sub = "###" if preamble else "##"  # sections sit one level below the report's title
+    parts += circuit_lines(records)
     if probes:
         by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed)
                    for s in ("mean_var", "max_var")}

@@ -1,4 +1,5 @@
-"""Statistics of plateau probes: gradient variances, decay-rate fits, training-curve summaries.
+"""Statistics of plateau probes: gradient variances, decay-rate fits, training-curve summaries,
+and the remaining time of a sweep from the measured cost of its finished jobs.
 
 For one group (strategy, cost, template) and one qubit count n, with gradients ``g_rk`` over
 seeds r = 1..R and active parameters k = 1..K:
@@ -12,12 +13,21 @@ bootstrap, resampling the seeds with replacement independently at every n. Writt
 rather than with ``scipy.stats.bootstrap`` because a resample that repeats one seed has zero
 variance (log2 = -inf); such resamples are dropped and counted, where scipy would carry the
 non-finite slopes into the percentiles.
+
+Remaining time: every pending job costs the mean seconds of the finished jobs of its group at
+its size n; a size with none finished yet is extrapolated from the largest finished size m < n
+of the group, ``mean(m) g^(n - m)`` with the growth per qubit ``g`` observed between the two
+largest finished sizes below n (of the group, else of all finished jobs; ``g >= 1``, else 1);
+with nothing smaller finished, the overall mean. The summed cost becomes wall time at the
+measured rate (wall seconds per second of job time: overheads, load and the real
+parallelism included) when given, else divided by the ``parallel`` workers; never less than
+the dearest single pending job.
 """
 
 from __future__ import annotations
 
 from collections import defaultdict
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Hashable, Iterable, Mapping, Sequence
 from typing import NamedTuple
 
 import numpy as np
@@ -28,6 +38,8 @@ from thermoseed.pretrain.errors import ThermoseedError
 STATISTICS = ("mean_var", "max_var", "mean_sq_norm")
 #: Rows of seeds bootstrapped per vectorised chunk (bounds memory at chunk * R * K floats).
 _BOOT_CHUNK = 64
+#: Floor of a mean job time in the growth ratio (seconds; a zero mean would divide by 0).
+_MIN_SECONDS = 1e-9
 
 
 class GradientStats(NamedTuple):
@@ -223,3 +235,74 @@ def summarize_curves(curves: Sequence[TrainCurve], *, target: float = 0.9) -> Cu
                         float(target), med if np.isfinite(med) else None,
                         int(np.isfinite(steps).sum()), float(np.median(acc[:, 0])),
                         float(np.median(acc.max(axis=1))), float(np.median(acc[:, -1])))
+
+
+# ---------------------------------------------------------------------------- sweep time
+
+
+def _growth(means: Mapping[int, float], below: int) -> float | None:
+    """Growth per qubit ``(S(m1) / S(m0))^(1 / (m1 - m0))`` between the two largest sizes
+    ``m0 < m1 < below`` of ``means`` (at least 1), or None with fewer than two sizes."""
+    sizes = sorted(m for m in means if m < below)
+    if len(sizes) < 2:
+        return None
+    m0, m1 = sizes[-2], sizes[-1]
+    ratio = means[m1] / max(means[m0], _MIN_SECONDS)
+    return max(1.0, ratio ** (1.0 / (m1 - m0)))
+
+
+def _summary(finished: Mapping[tuple[Hashable, int], Sequence[float]]
+             ) -> dict[tuple[Hashable, int], tuple[float, int]]:
+    """(mean seconds, count) per (group, n) with at least one finished job."""
+    return {key: (float(np.mean(v)), len(v)) for key, v in finished.items() if len(v)}
+
+
+def _job_cost(done: Mapping[tuple[Hashable, int], tuple[float, int]], group: Hashable,
+              n_qubits: int) -> float | None:
+    if not done:
+        return None
+    if (group, n_qubits) in done:
+        return done[group, n_qubits][0]
+    own = {n: mean for (g, n), (mean, _) in done.items() if g == group}
+    smaller = [m for m in own if m < n_qubits]
+    if not smaller:
+        return sum(m * c for m, c in done.values()) / sum(c for _, c in done.values())
+    top = max(smaller)
+    growth = _growth(own, n_qubits)
+    if growth is None:
+        pooled: dict[int, list[float]] = defaultdict(lambda: [0.0, 0])
+        for (_, n), (mean, count) in done.items():
+            pooled[n][0] += mean * count
+            pooled[n][1] += count
+        growth = _growth({n: total / count for n, (total, count) in pooled.items()},
+                         n_qubits)
+    return own[top] * (1.0 if growth is None else growth) ** (n_qubits - top)
+
+
+def job_seconds(finished: Mapping[tuple[Hashable, int], Sequence[float]], group: Hashable,
+                n_qubits: int) -> float | None:
+    """Expected seconds of one job of ``group`` at ``n_qubits`` from the finished jobs'
+    seconds per (group, n) (module docstring); None when nothing has finished."""
+    return _job_cost(_summary(finished), group, n_qubits)
+
+
+def remaining_seconds(finished: Mapping[tuple[Hashable, int], Sequence[float]],
+                      pending: Mapping[tuple[Hashable, int], int], parallel: int = 1,
+                      wall_per_second: float | None = None) -> float | None:
+    """Seconds until the ``pending`` jobs (count per (group, n)) are done:
+    ``max(r sum_jobs cost, max_jobs cost)`` with the costs of ``job_seconds`` and the rate
+    ``r`` = ``wall_per_second`` (measured wall seconds per second of job time, at least
+    ``1 / parallel``) or ``1 / parallel``; 0 when nothing is pending, None when nothing has
+    finished yet."""
+    if parallel < 1:
+        raise ThermoseedError(f"parallel must be >= 1, got {parallel!r}")
+    rate = 1.0 / parallel if wall_per_second is None else max(wall_per_second, 1.0 / parallel)
+    todo = {key: count for key, count in pending.items() if count > 0}
+    if not todo:
+        return 0.0
+    done = _summary(finished)
+    costs = {key: _job_cost(done, *key) for key in todo}
+    if any(c is None for c in costs.values()):
+        return None
+    total = sum(costs[key] * count for key, count in todo.items())
+    return max(rate * total, max(costs.values()))

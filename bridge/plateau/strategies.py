@@ -7,7 +7,8 @@ Every strategy draws the flat parameters ``[e, h]`` of the two-block probe circu
     ``small_angle``      every angle ``N(0, scale^2)``
     ``identity_blocks``  ``e`` uniform, ``h = e`` (``V = I``)
     ``pretrained``       one Gibbs model on a bootstrap resample of the training states,
-                         compiled into the encoder (latent form); head = identity
+                         compiled into the encoder (latent form); head = identity (zero
+                         parameters: the circuit must be the identity there, checked)
     ``pretrained_perturbed``  the same plus ``N(0, scale^2)`` on every angle
     ``class_models``     one Gibbs model per class on a bootstrap resample (stratified),
                          the single-shot rule between them (Helstrom) compiled into the whole
@@ -23,7 +24,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from thermoseed.bridge.ansatz import Ansatz
+from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
 from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import compile_latent
 from thermoseed.bridge.readout import readout_compile
@@ -42,6 +43,9 @@ PERTURBATION_SCALE = 0.05
 
 #: Success-probability gap to the attainable value at which a class-model compile stops.
 WARM_START_GAP = 1e-3
+#: Accepted deviation of ``|<psi|U(0)|psi>|`` from 1 (and between two such phases) for
+#: ``U(0) = I`` up to a global phase (double-precision round-off of a few hundred gates).
+IDENTITY_TOL = 1e-9
 
 Init = Callable[[tuple, np.random.Generator], np.ndarray]
 
@@ -105,6 +109,34 @@ class PretrainSettings(NamedTuple):
                            couplings=tuple(self.couplings), parity=bool(self.parity))
 
 
+def zero_is_identity(unit: Ansatz) -> bool:
+    """Whether ``U(0) = e^{ia} I``: a built-in's registry flag; for the user's circuit,
+    ``z_j = <psi_j|U(0)|psi_j>`` on two seeded random states (seed 0) with ``|z_j| = 1`` and
+    ``z_1 = z_2`` (within ``IDENTITY_TOL``): a random state is an eigenvector of a unitary
+    other than ``cI`` with probability 0."""
+    if unit.builtin:
+        return bool(TEMPLATES[unit.name].identity_at_zero)
+    d = 2**unit.n_wires
+    rng = np.random.default_rng(0)
+    psi = rng.standard_normal((d, 2)) + 1j * rng.standard_normal((d, 2))
+    psi /= np.linalg.norm(psi, axis=0)
+    image = np.asarray(apply_ansatz(unit, np.zeros(unit.shape), psi))
+    z = np.sum(psi.conj() * image, axis=0)
+    return bool(np.all(np.abs(np.abs(z) - 1.0) < IDENTITY_TOL)
+                and abs(z[0] - z[1]) < IDENTITY_TOL)
+
+
+def identity_head_params(head: Ansatz) -> np.ndarray:
+    """Zero parameters when the head is the identity there (``zero_is_identity``), else one
+    ``ThermoseedError`` line (the pretrained strategies need an identity head)."""
+    if not zero_is_identity(head):
+        raise ThermoseedError(
+            f"the pretrained strategies need a head that is the identity at zero parameters; "
+            f"circuit {head.name!r} is not (e.g. a fixed CNOT): build it from rotations and "
+            "controlled rotations, or compare identity_blocks / class_models instead")
+    return np.zeros(head.shape)
+
+
 def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
                settings: PretrainSettings | None = None,
                perturbation: float = 0.0) -> Strategy:
@@ -121,6 +153,7 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
     terms = settings.terms(n)
     states = np.asarray(data.train_states)
     blocks = TwoBlock(encoder, head)
+    head_zero = identity_head_params(head)
     pert = float(perturbation)
     if not np.isfinite(pert) or pert < 0:
         raise ThermoseedError(f"perturbation must be a finite number >= 0, got {perturbation!r}")
@@ -138,7 +171,7 @@ def pretrained(data: LabelledData, encoder: Ansatz, head: Ansatz,
             result = compile_latent(model, encoder, seed=int(rng.integers(2**31)),
                                     restarts=int(settings.restarts),
                                     max_iter=int(settings.compile_iter))
-        out = np.asarray(warm_start(result, head=head), dtype=float)
+        out = np.asarray(warm_start(result, head=head, head_identity=head_zero), dtype=float)
         if pert > 0:
             out = out + pert * rng.standard_normal(shape)
         return out

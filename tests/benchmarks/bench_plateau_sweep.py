@@ -9,9 +9,13 @@
 
 Case 1, ``probe_sweep``: ``bridge.sweep.run_sweep`` over n = 4, 6, ..., 12 (``--ns``),
 strategies uniform / small_angle / identity_blocks, ``--seeds`` seeds (default 50), depth n
-per half of ``V = U(h) U(e)^dag`` ("soft" template), cost ``--cost`` (default local), once
-with each worker count in ``--workers`` (default 1 and 2), into a fresh temporary file.
-Target: under 300 s with 2 workers; speed-up near the worker count.
+per half of ``V = U(h) U(e)^dag`` (``--template``: a built-in name, default "soft", or
+``own`` for a user's circuit family, RY/RZ layers with a CNOT ladder defined in this file),
+cost ``--cost`` (default local), once with each worker count in ``--workers`` (default 1
+and 2), into a fresh temporary file. Target: under 300 s with 2 workers; speed-up near the
+worker count. Alongside, the remaining time the progress bar would show
+(``sweep.SweepClock`` fed the records as they come) against the time that really remained,
+when half and when 90% of the jobs were done.
 
 Case 2, ``pretrained_probe``: ``bridge.plateau.probe("pretrained", n, n, "classifier", seed)``
 on magnet-phase data (32 ground states of the transverse-field Ising chain, 25% held out,
@@ -29,6 +33,8 @@ probe_sweep:
   jobs            number of jobs
   wall_s          wall-clock seconds of run_sweep (includes starting the worker processes)
   job_s_by_n      {n: summed per-job seconds} from the records (compute time, not wall)
+  eta_s           {"50%": estimate, "90%": estimate} remaining seconds shown at that point
+  left_s          {"50%": seconds, "90%": seconds} that really remained from that point
   speedup         wall_s of 1 worker / this wall_s (null when 1 worker was not measured)
   target_met      wall_s < 300 (2 workers only, else null)
 pretrained_probe:
@@ -51,6 +57,20 @@ from pathlib import Path
 
 SWEEP_TARGET_S = 300.0
 PRETRAINED_TARGET_S = 120.0
+OWN = "own"
+
+
+def bench_layers(params, wires):
+    """The user's circuit of ``--template own``: params (depth, n, 2), RY and RZ on every
+    wire, then a CNOT ladder, per layer (module level: worker processes import it)."""
+    import pennylane as qml
+
+    for layer in params:
+        for wire, (a, b) in zip(wires, layer, strict=True):
+            qml.RY(a, wires=wire)
+            qml.RZ(b, wires=wire)
+        for w0, w1 in zip(wires[:-1], wires[1:], strict=False):
+            qml.CNOT(wires=[w0, w1])
 
 
 def parse(argv=None):
@@ -68,19 +88,33 @@ def parse(argv=None):
 
 
 def sweep_cases(args) -> list[dict]:
-    from thermoseed.bridge.plateau.sweep import make_grid, run_sweep
+    from thermoseed.bridge import circuit_family
+    from thermoseed.bridge.plateau.sweep import SweepClock, job_key, make_grid, run_sweep
 
+    template = (circuit_family(bench_layers, ("depth", "n", 2), "bench ladder")
+                if args.template == OWN else args.template)
     jobs = make_grid(args.ns, args.strategies, range(args.seeds), costs=(args.cost,),
-                     template=args.template)
+                     template=template)
+    by_key = {job_key(job, None): job for job in jobs}
     out = []
     base = None
     for workers in args.workers:
         load = os.getloadavg()[0]
+        clock, marks = SweepClock(jobs, workers), {}
+
+        def watch(record, clock=clock, marks=marks):
+            clock.finish(by_key[record["key"]], record["seconds"])
+            done = sum(len(v) for v in clock.finished.values())
+            for label, share in (("50%", 0.5), ("90%", 0.9)):
+                if label not in marks and done >= share * len(jobs):
+                    marks[label] = (time.perf_counter(), clock.eta)
+
         with tempfile.TemporaryDirectory() as tmp:
             start = time.perf_counter()
             result = run_sweep(jobs, Path(tmp) / "sweep.jsonl", workers=workers,
-                               progress=False)
-            wall = time.perf_counter() - start
+                               progress=False, on_record=watch)
+            end = time.perf_counter()
+            wall = end - start
         by_n: dict[int, float] = {}
         for rec in result.records:
             n = rec["job"]["n_qubits"]
@@ -92,6 +126,8 @@ def sweep_cases(args) -> list[dict]:
             "strategies": list(args.strategies), "seeds": args.seeds, "cost": args.cost,
             "template": args.template, "jobs": len(jobs), "wall_s": round(wall, 2),
             "job_s_by_n": {str(n): round(v, 2) for n, v in sorted(by_n.items())},
+            "eta_s": {k: None if e is None else round(e, 1) for k, (_, e) in marks.items()},
+            "left_s": {k: round(end - t, 1) for k, (t, _) in marks.items()},
             "speedup": None if base is None else round(base / wall, 2),
             "target_met": (wall < SWEEP_TARGET_S) if workers == 2 else None,
             "cpu_count": os.cpu_count(), "load_before": round(load, 2),
@@ -132,10 +168,12 @@ def table(cases: list[dict]) -> str:
                      f"{sweeps[0]['seeds']} seeds, depth n, cost {sweeps[0]['cost']}, "
                      f"{sweeps[0]['jobs']} jobs")
         lines.append(f"{'workers':>8} {'wall s':>9} {'speed-up':>9} {'< 300 s':>8}  "
-                     "job seconds by n")
+                     "eta shown / really left (s) at 50% and 90%   job seconds by n")
         for c in sweeps:
+            eta = "  ".join(f"{k}: {c['eta_s'].get(k)} / {c['left_s'].get(k)}"
+                            for k in ("50%", "90%"))
             lines.append(f"{c['workers']:>8} {c['wall_s']:>9.1f} {str(c['speedup']):>9} "
-                         f"{str(c['target_met']):>8}  {c['job_s_by_n']}")
+                         f"{str(c['target_met']):>8}  {eta}   {c['job_s_by_n']}")
     pre = [c for c in cases if c["case"] == "pretrained_probe"]
     if pre:
         lines.append("pretrained strategy (fit + compile + classifier gradient), per seed:")
