@@ -178,6 +178,11 @@ def _energies(rows, h):
     return anp.real(anp.sum(anp.conj(rows) * anp.dot(rows, h.T), axis=1))
 
 
+def _visible(model):
+    """A hidden-qubit model compiles as its visible reduced state (``visible_view``)."""
+    return model.visible_view() if hasattr(model, "visible_view") else model
+
+
 def _check_model(model, ansatz: Ansatz, n_wires: int):
     if not hasattr(model, "coef_") or not hasattr(model, "terms_"):
         raise ThermoseedError("compile needs a fitted Gibbs model (call fit, or load_model)")
@@ -258,7 +263,8 @@ def compile_latent(
     tol: float = 1e-6, init_scale: float = 2 * np.pi, small_start: bool = True, data=None,
     progress: bool = False, class_data=None, readout: int = 0,
 ) -> CompileResult:
-    """Latent-form compile of a fitted model into ``ansatz`` (see module docstring).
+    """Latent-form compile of a fitted model into ``ansatz`` (see module docstring); a
+    hidden-qubit model compiles as its visible reduced state.
 
     ``data``: optional training density matrix (or ``TrainingData``) for the report.
     ``class_data``: optional ``(states, labels)`` with two classes 0/1; each latent
@@ -270,6 +276,7 @@ def compile_latent(
     """
     if latent not in LATENT_KINDS:
         raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
+    model = _visible(model)
     n = _check_model(model, ansatz, ansatz.n_wires)
     data_rho = _data_rho(data, n)
     h = np.asarray(model.hamiltonian())
@@ -331,6 +338,7 @@ def compile_purified(
     """Purified-form compile: ``ansatz`` acts on visible wires 0..n-1 plus ancillas n..;
     minimises ``S(rho_v || sigma)`` of the visible reduced state of ``W|0...0>``. Restarts
     start as in ``compile_latent`` (the first near zero when ``small_start``)."""
+    model = _visible(model)
     n = model.terms_.n_qubits if n_visible is None else int(n_visible)
     _check_model(model, ansatz, n)
     if ansatz.n_wires <= n:

@@ -19,8 +19,21 @@ from thermoseed.pretrain.files import json_scalar, read_record, write_record
 COMPILE_KIND = "compile-result"
 
 
+def model_kind(result: CompileResult) -> tuple[str, int]:
+    """``("hidden-gibbs-model", n_hidden)`` when the compiled model was a hidden model (its
+    labels span ``n_visible + n_hidden`` wires: ``HiddenGibbsModel.visible_view``), else
+    ``("visible-gibbs-model", 0)``."""
+    width = len(result.model_terms[0]) if len(result.model_terms) else result.n_visible
+    n_hidden = width - result.n_visible
+    if n_hidden < 0:
+        raise ThermoseedError(f"the compiled model's labels span {width} wires, fewer than "
+                              f"its {result.n_visible} visible qubits; the result is damaged")
+    return ("hidden-gibbs-model" if n_hidden else "visible-gibbs-model"), n_hidden
+
+
 def save_compile(result: CompileResult, path) -> Path:
-    """Write a compile result atomically."""
+    """Write a compile result atomically; the header's ``model`` block says what was
+    compiled (``model_kind``: a hidden model's visible state, or a visible model)."""
     a = result.ansatz
     header = {
         "form": result.form,
@@ -28,6 +41,7 @@ def save_compile(result: CompileResult, path) -> Path:
                    "n_wires": a.n_wires, "builtin": a.builtin},
         "n_visible": result.n_visible,
         "model_terms": list(result.model_terms),
+        "model": dict(zip(("kind", "n_hidden"), model_kind(result), strict=True)),
         "report": {k: json_scalar(v) for k, v in result.report._asdict().items()},
     }
     arrays = {"params": np.asarray(result.params, float),

@@ -26,6 +26,7 @@ from pennylane import numpy as pnp
 from thermoseed.bridge.ansatz import Ansatz
 from thermoseed.bridge.circuits import TwoBlock
 from thermoseed.bridge.compile import CompileResult, compile_latent
+from thermoseed.bridge.compile_record import model_kind
 from thermoseed.bridge.readout import readout_compile
 from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.pretrain.classifier import GibbsClassifier
@@ -64,7 +65,8 @@ def warm_start(
     Args:
         source: a fitted ``GibbsClassifier`` (labels known), a ``CompileResult``, or a fitted
             Gibbs model (compiled here into ``ansatz`` with ``seed``/``restarts``; ``data`` is
-            passed on for the compile report).
+            passed on for the compile report). A ``HiddenGibbsModel`` compiles its visible
+            reduced state ``sigma_v`` (``visible_view()``); ``data`` are then visible states.
         ansatz: your circuit (``user_ansatz(qfunc, shape, wires)`` or a built-in); for a
             classifier the whole circuit, else the encoder.
         head: optional head ansatz; then the result is one flat vector
@@ -100,6 +102,8 @@ def warm_start(
     elif hasattr(source, "coef_"):
         if ansatz is None:
             raise ThermoseedError("warm_start from a fitted model needs ansatz=<encoder ansatz>")
+        if hasattr(source, "visible_view"):  # a hidden model: compile its visible state
+            source = source.visible_view()
         result = compile_latent(source, ansatz, seed=seed, restarts=restarts, data=data,
                                 progress=progress)
     else:
@@ -127,7 +131,7 @@ def _classifier_start(clf: GibbsClassifier, ansatz, head, readout, seed, restart
     if not hasattr(clf, "models_"):
         raise ThermoseedError("the GibbsClassifier is not fitted; call fit(states, labels) "
                               "first")
-    n = clf.terms_.n_qubits
+    n = clf.n_visible_
     if ansatz.n_wires != n:
         raise ThermoseedError(f"your circuit acts on {ansatz.n_wires} wires but the class "
                               f"models on {n} qubits; use a circuit on {n} wires")
@@ -149,11 +153,38 @@ def _describe(ansatz: Ansatz) -> dict:
             "n_wires": ansatz.n_wires, "builtin": ansatz.builtin}
 
 
-def save_warm_start(path, params, circuit: Ansatz, head: Ansatz | None = None,
-                    **info) -> Path:
+def describe_source(source) -> tuple[dict, dict]:
+    """``(header, arrays)`` naming the model a warm start came from: ``kind``
+    (``"visible-gibbs-model"``, ``"hidden-gibbs-model"`` or ``"gibbs-classifier"``),
+    ``n_hidden``, ``terms`` (labels on the full register, hidden wires last), and the
+    coefficients as the array ``source_coef`` ((C, K) for a classifier). A
+    ``CompileResult`` is described by the model it compiled (``compile_record.model_kind``)."""
+    if isinstance(source, CompileResult):
+        n_hidden = model_kind(source)[1]
+        labels, coef = list(source.model_terms), np.asarray(source.model_coef, float)
+    elif isinstance(source, GibbsClassifier):
+        if not hasattr(source, "coef_"):
+            raise ThermoseedError("the GibbsClassifier is not fitted; call fit first")
+        n_hidden = int(source.n_hidden_)
+        labels, coef = list(source.terms_.labels), np.asarray(source.coef_, float)
+    elif hasattr(source, "coef_") and hasattr(source, "terms_"):
+        n_hidden = int(getattr(source, "n_hidden_", 0))
+        labels, coef = list(source.terms_.labels), np.asarray(source.coef_, float)
+    else:
+        raise ThermoseedError(f"cannot describe a warm-start source of type {type(source)!r}; "
+                              "pass a fitted model, GibbsClassifier or CompileResult")
+    kind = "gibbs-classifier" if isinstance(source, GibbsClassifier) else \
+        "hidden-gibbs-model" if n_hidden else "visible-gibbs-model"
+    return {"kind": kind, "n_hidden": n_hidden, "terms": labels}, {"source_coef": coef}
+
+
+def save_warm_start(path, params, circuit: Ansatz, head: Ansatz | None = None, *,
+                    source=None, **info) -> Path:
     """Write warm-start parameters as a versioned record (kind ``"warm-start"``): the
-    circuit (or encoder) and head templates, the parameter layout, and ``info`` (JSON-able,
-    e.g. the strategy and its quality numbers)."""
+    circuit (or encoder) and head templates, the parameter layout, ``info`` (JSON-able,
+    e.g. the strategy and its quality numbers) and, given the ``source`` the parameters came
+    from (model, classifier or ``CompileResult``), what it was (``describe_source``: a hidden
+    model is recorded as one, with its n_hidden, labels and coefficients)."""
     params = np.asarray(params, dtype=float)
     if head is None:
         circuit.check(params)
@@ -163,7 +194,11 @@ def save_warm_start(path, params, circuit: Ansatz, head: Ansatz | None = None,
         layout = TWO_BLOCK_LAYOUT
     header = {"circuit": _describe(circuit), "head": None if head is None else _describe(head),
               "layout": layout, "info": info}
-    return write_record(path, WARM_START_KIND, header, {"params": params})
+    arrays = {"params": params}
+    if source is not None:
+        header["source"], more = describe_source(source)
+        arrays.update(more)
+    return write_record(path, WARM_START_KIND, header, arrays)
 
 
 def load_warm_start(path) -> tuple[np.ndarray, dict]:

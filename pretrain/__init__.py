@@ -5,8 +5,8 @@ Numpy and scipy only; nothing here imports ``thermoseed.bridge`` or ``thermoseed
 Layer order, lowest first (a module imports only modules before it):
     lazy -> errors -> checks -> memory -> _base -> files -> linalg -> frechet -> paulis ->
     data -> shadows -> records -> uncertainty -> labelled -> engines -> optim -> divergence ->
-    models -> measurements -> classifier -> term_growth -> diagnostics -> hidden_layout ->
-    hidden_engines -> hidden -> hidden_diagnostics
+    models -> hidden_layout -> hidden_engines -> hidden -> measurements -> classifier ->
+    term_growth -> diagnostics -> hidden_diagnostics
 """
 
 from thermoseed.pretrain.lazy import lazy_exports
@@ -25,7 +25,8 @@ EXPORTS = {
     "files": ("read_record", "write_record"),
     "frechet": ("daleckii_krein", "exp_divided_differences", "frechet_exp", "frechet_log",
         "log_divided_differences"),
-    "hidden": ("HiddenGibbsModel", "load_hidden_model", "save_hidden_model"),
+    "hidden": ("HiddenGibbsModel", "ReducedGibbsView", "ReducedTerms", "load_hidden_model",
+        "save_hidden_model"),
     "hidden_diagnostics": ("HiddenFitReport", "hidden_fit_report", "page_entropy",
         "WashoutReport", "washout_report"),
     "hidden_engines": ("BlockHiddenEngine", "DenseHiddenEngine", "HiddenEvaluation"),

@@ -27,6 +27,14 @@ is spread evenly, ``M_c += Pi_0 / C``, so ``sum_c M_c = I``. Its success is at l
 square of the optimum (Barnum & Knill, "Reversing quantum dynamics with near-optimal quantum
 and classical fidelity", 2002). ``predict_proba(rho)_c = Tr(M_c rho)``.
 
+Hidden qubits (``n_hidden = k > 0``): each class model is a ``HiddenGibbsModel`` on
+``n_visible + k`` wires and ``sigma_c`` above is its visible reduced state
+``sigma_v,c = Tr_h exp(-H_c) / Z_c``. The many-copy score is
+``s_c = Tr(rho log sigma_v,c) + log p_c = -S(rho||sigma_v,c) - S(rho) + log p_c``, with
+``log sigma_v,c = -H_eff,c`` from ``HiddenGibbsModel.visible_view`` (no Pauli sum on the shared
+terms exists, so ``decision_observable`` is for visible models only); the single-shot rule
+and every compile of it use the (cooled) reduced states.
+
 Bounds: ``data_success_`` is the optimal (two classes) or pretty-good single-shot success
 between the class mixtures ``rho_c``; one copy of a random class-c training state is the
 state rho_c, so with two classes no single-shot classifier beats it on average over the
@@ -54,11 +62,10 @@ from .data import (
 )
 from .errors import ThermoseedError
 from .files import json_scalar, read_record, write_record
+from .hidden import HiddenGibbsModel
+from .hidden_layout import split_register
 from .linalg import log_sum_exp_neg
-from .measurements import (
-    prior_vector,
-    single_shot,
-)
+from .measurements import prior_vector, single_shot
 from .models import VisibleGibbsModel
 from .paulis import PauliExpansion, TermSet, expectations
 
@@ -159,20 +166,36 @@ def resolve_priors(spec, counts: np.ndarray) -> np.ndarray:
 
 
 def cooled_states(terms: TermSet, models, beta: float) -> np.ndarray:
-    """(C, d, d) ``exp(-beta H_c) / Z_c(beta)`` of fitted class models."""
+    """(C, d, d) ``exp(-beta H_c) / Z_c(beta)`` of fitted class models (for hidden models
+    the visible reduced state of the cooled full-register model)."""
     if beta == 1.0:
         return np.stack([m.state() for m in models])
-    return np.stack([VisibleGibbsModel.from_coefficients(terms, beta * m.coef_).state()
-                     for m in models])
+    return np.stack([m.from_coefficients(terms, beta * m.coef_, **{
+        k: v for k, v in m.get_params().items() if k != "terms"}).state() for m in models])
+
+
+def _check_register(n_qubits: int, terms: TermSet, n_hidden: int) -> None:
+    """States on the visible wires: ``terms`` minus ``n_hidden`` (``data.check_qubits``)."""
+    if not n_hidden:
+        check_qubits(n_qubits, terms)
+        return
+    n_v, k = split_register(terms, n_hidden)
+    if n_qubits != n_v:
+        raise ThermoseedError(f"the states have {n_qubits} qubits but the terms have {n_v} "
+                              f"visible wires ({terms.n_qubits} wires, n_hidden = {k}); give "
+                              "states on the visible wires or change n_hidden")
+
+
+def _povm_values(operators: np.ndarray, batch: StateBatch) -> np.ndarray:
+    """(B, C) ``Tr(A_c rho_b)`` for Hermitian ``A_c`` (``<psi_b|A_c|psi_b>`` for vectors)."""
+    if batch.kind == "states":
+        return np.einsum("ba,cax,bx->bc", batch.data.conj(), operators, batch.data).real
+    return np.einsum("cab,kba->kc", operators, batch.data).real
 
 
 def _povm_probs(povm: np.ndarray, batch: StateBatch) -> np.ndarray:
     """(B, C) outcome probabilities ``Tr(M_c rho_b)``, clipped at 0 and renormalised."""
-    if batch.kind == "states":
-        probs = np.einsum("ba,cax,bx->bc", batch.data.conj(), povm, batch.data).real
-    else:
-        probs = np.einsum("cab,kba->kc", povm, batch.data).real
-    probs = np.clip(probs, 0.0, None)
+    probs = np.clip(_povm_values(povm, batch), 0.0, None)
     return probs / probs.sum(axis=1, keepdims=True)
 
 
@@ -188,7 +211,16 @@ class GibbsClassifier(ParamsMixin):
             (Helstrom / pretty-good measurement between the models); module docstring.
         priors: ``"balanced"`` (1/C; empirical priors tilt the measurement towards the
             majority class), ``"empirical"`` (class frequencies) or C explicit values.
-        l2, tol, max_iter, solver, engine, progress: passed to every ``VisibleGibbsModel``.
+        l2, tol, max_iter, solver, engine, progress: passed to every ``VisibleGibbsModel``
+            (``engine`` only: hidden models take ``hidden_engine``).
+        n_hidden: 0 (default) fits ``VisibleGibbsModel``s; ``k > 0`` fits one
+            ``HiddenGibbsModel`` per class on ``terms`` spanning ``n_visible + k`` wires
+            (hidden last, e.g. ``hidden_terms``); the states stay on the visible wires. The
+            many-copy score is then ``Tr(rho log sigma_v,c) + log p_c`` with the reduced
+            states' logarithms (``ReducedGibbsView``), the single-shot rule separates the
+            (cooled) reduced states.
+        restarts, init_scale, seed, hidden_engine: the hidden models' ``restarts``,
+            ``init_scale``, ``seed`` and ``engine`` (ignored when ``n_hidden = 0``).
         renormalize: divide unnormalised states by their norm (trace) instead of failing.
         cooling: the single-shot rule (and every compile of it) works with the class models
             cooled by a factor ``beta >= 1``, ``exp(-beta H_c) / Z_c(beta)``; ``beta = 1`` is
@@ -200,8 +232,11 @@ class GibbsClassifier(ParamsMixin):
 
     Attributes:
         terms_, classes_, class_counts_, priors_: the term set, ``0..C-1``, counts, priors.
-        models_: fitted ``VisibleGibbsModel`` per class. coef_: (C, K) coefficients.
-        log_partition_: (C,) ``log Z_c``. loss_: (C,) ``S(rho_c||sigma_c)``. converged_: (C,).
+        n_hidden_, n_visible_: hidden wires of the class models and the states' qubits.
+        models_: fitted ``VisibleGibbsModel`` (or ``HiddenGibbsModel``) per class.
+        coef_: (C, K) coefficients. log_partition_: (C,) ``log Z_c`` (full register).
+        log_states_: (C, d, d) ``log sigma_v,c`` (hidden models only, else None).
+        loss_: (C,) ``S(rho_c||sigma_c)``. converged_: (C,).
         cooling_: the ``beta`` the single-shot rule uses (``class_states()``).
         povm_: (C, d, d) single-shot measurement between the cooled models.
         model_success_: single-shot success between the cooled models;
@@ -211,7 +246,8 @@ class GibbsClassifier(ParamsMixin):
     def __init__(self, terms, *, rule: str = "many-copy", priors="balanced", l2: float = 1e-3,
                  tol: float = 1e-6, max_iter: int = 500, solver: str = "lbfgs",
                  engine: str = "dense", renormalize: bool = False, cooling="auto",
-                 progress: bool = False):
+                 progress: bool = False, n_hidden: int = 0, restarts: int = 1,
+                 init_scale: float = 0.3, seed: int = 0, hidden_engine: str = "auto"):
         self.terms = terms
         self.rule = rule
         self.priors = priors
@@ -223,10 +259,24 @@ class GibbsClassifier(ParamsMixin):
         self.renormalize = renormalize
         self.cooling = cooling
         self.progress = progress
+        self.n_hidden = n_hidden
+        self.restarts = restarts
+        self.init_scale = init_scale
+        self.seed = seed
+        self.hidden_engine = hidden_engine
 
     def _model_params(self) -> dict:
-        return {"l2": self.l2, "tol": self.tol, "max_iter": self.max_iter,
-                "solver": self.solver, "engine": self.engine, "progress": self.progress}
+        shared = {"l2": self.l2, "tol": self.tol, "max_iter": self.max_iter,
+                  "solver": self.solver, "progress": self.progress}
+        if not self.n_hidden:
+            return {**shared, "engine": self.engine}
+        return {**shared, "n_hidden": self.n_hidden, "engine": self.hidden_engine,
+                "restarts": self.restarts, "init_scale": self.init_scale, "seed": self.seed}
+
+    def _new_model(self, terms: TermSet):
+        """An unfitted class model: visible, or hidden when ``n_hidden > 0``."""
+        kind = HiddenGibbsModel if self.n_hidden else VisibleGibbsModel
+        return kind(terms, **self._model_params())
 
     def fit(self, states, labels) -> GibbsClassifier:
         """Fit one model per class on that class's mixture and return self."""
@@ -234,12 +284,12 @@ class GibbsClassifier(ParamsMixin):
             raise ThermoseedError(f"unknown rule {self.rule!r}; choose one of {RULES}")
         terms = self.terms if isinstance(self.terms, TermSet) else TermSet(self.terms)
         batch = as_state_batch(states, renormalize=self.renormalize)
-        check_qubits(batch.n_qubits, terms)
+        _check_register(batch.n_qubits, terms, self.n_hidden)
         y, n_classes = check_labels(labels, batch.count)
         counts = np.bincount(y, minlength=n_classes)
         priors = resolve_priors(self.priors, counts)
         mixtures = [batch_mixture(batch.subset(y == c)) for c in range(n_classes)]
-        models = [VisibleGibbsModel(terms, **self._model_params()).fit(td) for td in mixtures]
+        models = [self._new_model(terms).fit(td) for td in mixtures]
         self._set_models(terms, models, priors, self._choose_cooling(terms, models, priors,
                                                                      batch, y))
         self.class_counts_ = counts
@@ -267,10 +317,18 @@ class GibbsClassifier(ParamsMixin):
                     cooling: float = 1.0) -> None:
         self.terms_ = terms
         self.models_ = models
+        self.n_visible_, self.n_hidden_ = split_register(terms, self.n_hidden)
         self.classes_ = np.arange(len(models))
         self.priors_ = priors
         self.coef_ = np.stack([m.coef_ for m in models])
-        self.log_partition_ = np.array([m.log_partition() for m in models])
+        self.log_states_ = None
+        if self.n_hidden_:
+            views = [m.visible_view() for m in models]
+            self.log_partition_ = np.array([v.hidden_log_z_ for v in views])
+            self.log_states_ = np.stack([-v.hamiltonian() - v.log_z_ * np.eye(len(v.energies_))
+                                         for v in views])
+        else:
+            self.log_partition_ = np.array([m.log_partition() for m in models])
         self.cooling_ = float(cooling)
         self.povm_, self.model_success_ = single_shot(self.class_states(), priors)
 
@@ -283,12 +341,17 @@ class GibbsClassifier(ParamsMixin):
     def _batch(self, states) -> StateBatch:
         check_is_fitted(self, "coef_")
         batch = as_state_batch(states, renormalize=self.renormalize)
-        check_qubits(batch.n_qubits, self.terms_)
+        _check_register(batch.n_qubits, self.terms_, self.n_hidden_)
         return batch
 
     def relative_entropy_scores(self, states) -> np.ndarray:
-        """(B, C) scores ``s_c = -[Tr(rho H_c) + log Z_c] + log p_c`` (either rule)."""
-        moments = batch_moments(self._batch(states), self.terms_)
+        """(B, C) scores ``s_c = Tr(rho log sigma_c) + log p_c``: ``-[Tr(rho H_c) + log Z_c]``
+        from Pauli moments for visible models, ``Tr(rho log sigma_v,c)`` from the reduced
+        states' logarithms for hidden ones (either rule)."""
+        batch = self._batch(states)
+        if self.log_states_ is not None:
+            return _povm_values(self.log_states_, batch) + np.log(self.priors_)
+        moments = batch_moments(batch, self.terms_)
         return -(moments @ self.coef_.T) - self.log_partition_ + np.log(self.priors_)
 
     def predict_proba(self, states) -> np.ndarray:
@@ -321,6 +384,10 @@ class GibbsClassifier(ParamsMixin):
         ``log Z_1 - log Z_0 - log(p_1/p_0)`` (without the prior term if not ``with_priors``).
         Class 1 iff ``Tr(rho D) < 0``; many-copy ``P(1|rho) = 1 / (1 + exp(Tr(rho D)))``."""
         check_is_fitted(self, "coef_")
+        if self.n_hidden_:
+            raise ThermoseedError("decision_observable is a Pauli sum on the shared terms for "
+                                  "visible class models only (n_hidden = 0); with hidden "
+                                  "models use relative_entropy_scores")
         if len(self.classes_) != 2:
             raise ThermoseedError(f"decision_observable needs two classes, this classifier has "
                                   f"{len(self.classes_)}; use relative_entropy_scores")
@@ -370,8 +437,8 @@ def load_classifier(path) -> GibbsClassifier:
             priors.shape != (coef.shape[0],):
         raise ThermoseedError(f"classifier file {str(path)!r} is inconsistent: coef "
                               f"{coef.shape}, log_partition {log_z.shape}, priors {priors.shape}")
-    models = [VisibleGibbsModel.from_coefficients(terms, row, **clf._model_params())
-              for row in coef]
+    kind = HiddenGibbsModel if clf.n_hidden else VisibleGibbsModel
+    models = [kind.from_coefficients(terms, row, **clf._model_params()) for row in coef]
     clf._set_models(terms, models, priors, float(metrics.get("cooling", 1.0)))
     clf.log_partition_ = log_z
     for name, attr in _METRICS:

@@ -18,24 +18,30 @@ L is not convex once hidden qubits are present (and ``theta = 0`` is a stationar
 every hidden coupling): the fit starts from ``restarts`` seeded random points
 ``theta_0 ~ N(0, init_scale^2)`` and keeps the lowest final objective; the final losses of
 every restart are kept in ``restart_losses_``.
+
+``visible_view()`` presents a fitted model to code written for visible models (the bridge's
+compile and warm start, the classifier's rules): ``sigma_v`` is the Gibbs state of
+``H_eff = -log sigma_v`` (``ReducedGibbsView``), whose records keep the hidden model's labels,
+coefficients and ``n_hidden``.
 """
 
 from __future__ import annotations
 
 import warnings
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
 from ._base import ParamsMixin, check_is_fitted
 from .checks import integer_in, real_number, seed_value
 from .data import as_training_data, check_density_matrix, square_array_kind
-from .engines import make_engine
+from .engines import GibbsEvaluation, make_engine
 from .errors import DivergenceWarning, ThermoseedError
 from .files import json_scalar, read_record, write_record
 from .hidden_engines import BlockHiddenEngine, DenseHiddenEngine, HiddenEvaluation
 from .hidden_layout import non_diagonal_hidden_terms, split_register, visible_only_terms
-from .linalg import von_neumann_entropy
+from .linalg import WEIGHT_CUTOFF, eigh, log_sum_exp_neg, von_neumann_entropy
 from .models import DIVERGENCE_COEF
 from .optim import SOLVERS, Callback, minimize
 from .paulis import TermSet, check_coefficients, dense_hamiltonian, expectations
@@ -287,6 +293,12 @@ class HiddenGibbsModel(ParamsMixin):
         check_is_fitted(self, "coef_")
         return dense_hamiltonian(self.coef_, self.terms_)
 
+    def visible_view(self) -> ReducedGibbsView:
+        """This model seen from its visible wires: ``sigma_v`` as the Gibbs state of
+        ``H_eff = -log sigma_v`` (``ReducedGibbsView``), for anything taking a visible model
+        (``bridge.compile_latent``, ``bridge.warm_start``)."""
+        return ReducedGibbsView(self)
+
     def relative_entropy(self, rho) -> float:
         """``S(rho||sigma_v) = -S(rho) - Tr(rho log sigma_v)`` for a visible density matrix."""
         r = self._visible_rho(rho)
@@ -295,6 +307,71 @@ class HiddenGibbsModel(ParamsMixin):
     def save(self, path) -> Path:
         """Write a versioned model file (``save_hidden_model``)."""
         return save_hidden_model(self, path)
+
+
+class ReducedTerms(NamedTuple):
+    """The term labels of a hidden model (full register, hidden wires last) beside the
+    register its reduced state lives on: ``n_qubits`` counts the VISIBLE wires."""
+
+    labels: list[str]
+    n_qubits: int
+    n_hidden: int
+
+
+class ReducedGibbsView:
+    """A fitted ``HiddenGibbsModel`` presented as a visible Gibbs model.
+
+    ``sigma_v = Tr_h exp(-H)/Z = V diag(p) V^dag`` is itself the Gibbs state of
+    ``H_eff = -log sigma_v = V diag(-log p) V^dag`` (``log Z_eff = log sum_i p_i = 0``).
+    Eigenvalues below ``WEIGHT_CUTOFF`` times the largest are round-off of the reduced state
+    and are raised to that floor before the logarithm (``log_z`` is then ``log sum`` of the
+    floored values, within ~d 1e-16 of 0, so ``exp(-H_eff - log_z)`` stays a unit-trace
+    state). Built once from the model's coefficients (a snapshot: refit, then ask again).
+
+    Attributes:
+        model: the hidden model. terms_: ``ReducedTerms`` (the hidden model's labels,
+        ``n_qubits`` = visible wires, ``n_hidden``). coef_: its coefficients.
+        n_hidden_, n_visible_: register sizes. energies_: ``-log p_i`` ascending.
+        vectors_: eigenvectors of sigma_v (columns, order of ``energies_``).
+        state_: ``sigma_v``. log_z_: as above. hidden_log_z_: ``log Tr exp(-H)`` of the
+        full register.
+    """
+
+    def __init__(self, model: HiddenGibbsModel):
+        check_is_fitted(model, "coef_")
+        self.model = model
+        self.coef_ = np.asarray(model.coef_, float)
+        self.n_visible_, self.n_hidden_ = model.n_visible_, model.n_hidden_
+        self.terms_ = ReducedTerms(list(model.terms_.labels), self.n_visible_, self.n_hidden_)
+        dim = 2**self.n_visible_
+        full = model.evaluate(np.eye(dim) / dim, gradient=False)
+        probs, vectors = eigh(full.state)
+        probs, self.vectors_ = probs[::-1], vectors[:, ::-1]  # energies ascending
+        probs = np.maximum(probs, WEIGHT_CUTOFF * probs[0])
+        self.energies_ = -np.log(probs)
+        self.log_z_ = log_sum_exp_neg(self.energies_)[0]
+        self.hidden_log_z_ = float(full.log_z)
+        self.state_ = (self.vectors_ * np.exp(-self.energies_ - self.log_z_)) \
+            @ self.vectors_.conj().T
+
+    def hamiltonian(self) -> np.ndarray:
+        """Dense ``H_eff = V diag(-log p) V^dag`` on the visible wires."""
+        return (self.vectors_ * self.energies_) @ self.vectors_.conj().T
+
+    def state(self) -> np.ndarray:
+        """``sigma_v`` (from the floored spectrum)."""
+        return self.state_.copy()
+
+    def log_partition(self) -> float:
+        """``log Tr exp(-H_eff)`` (0 up to the floor)."""
+        return self.log_z_
+
+    def evaluate(self, want_state: bool = False) -> GibbsEvaluation:
+        """``GibbsEvaluation`` of ``exp(-H_eff)``: log Z_eff, the hidden model's full-register
+        moments ``<P_j>_sigma`` (its terms), energies, and state and vectors on request."""
+        return GibbsEvaluation(self.log_z_, self.model.moments(), self.energies_,
+                               self.state() if want_state else None,
+                               self.vectors_ if want_state else None)
 
 
 HIDDEN_MODEL_KIND = "hidden-gibbs-model"

@@ -267,8 +267,8 @@ def _cmd_warm_start(args) -> int:
     result = load_compile(args.compile)
     head = make_ansatz(args.head, result.n_visible, args.head_layers) if args.head else None
     params = np.asarray(warm_start(result, head=head))
-    path = save_warm_start(args.out, params, result.ansatz, head, strategy="pretrained",
-                           model_fidelity=result.report.model_fidelity)
+    path = save_warm_start(args.out, params, result.ansatz, head, source=result,
+                           strategy="pretrained", model_fidelity=result.report.model_fidelity)
     print(_json({"params": str(path), "shape": list(params.shape)}))
     return 0
 

@@ -206,8 +206,8 @@ def _pretrain_chain(recipe: Recipe, out: Path, run: dict, terms, td, progress: b
     head = unit if zero_is_identity(unit) else None  # else: the encoder's parameters only
     params = warm_start(result, head=head, head_identity=None if head is None
                         else np.zeros(unit.shape))
-    save_warm_start(out / "warm_start.npz", params, unit, head, strategy="pretrained",
-                    model_fidelity=result.report.model_fidelity)
+    save_warm_start(out / "warm_start.npz", params, unit, head, source=result,
+                    strategy="pretrained", model_fidelity=result.report.model_fidelity)
     plot_fit_history(model.history_, out / "fit_history.png")
     plot_compile_history(result.history, out / "compile_history.png",
                          floor=result.report.floor)

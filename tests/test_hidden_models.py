@@ -37,7 +37,13 @@ from thermoseed.pretrain import (
     von_neumann_entropy,
     washout_report,
 )
+from thermoseed.pretrain.hidden_engines import (
+    MIN_THREAD_DIM,
+    stacked_exp_divided_differences,
+    stacked_hamiltonians,
+)
 from thermoseed.pretrain.optim import minimize
+from thermoseed.pretrain.paulis import dense_hamiltonian
 
 FD_STEP = 1e-5  # truncation ~1e-10 and round-off ~1e-11 for these O(1) losses
 
@@ -190,6 +196,49 @@ def test_block_engine_equals_dense_engine(n_v, n_h, workers, helpers):
     assert abs(block.log_z - dense.log_z) < 1e-9
     assert np.abs(block.gradient - dense.gradient).max() < 1e-9
     assert np.abs(block.state - dense.state).max() < 1e-12
+
+
+def test_threaded_block_engine_equals_serial_and_dense(helpers):
+    """Above MIN_THREAD_DIM the blocks really are spread over the worker threads."""
+    rng = np.random.default_rng(31)
+    n_v, n_h = 6, 2
+    assert 2**n_v >= MIN_THREAD_DIM
+    terms = hidden_terms(n_v, n_h, visible_fields="XZ", couplings=("ZZ",), hidden_fields="Z")
+    rho = helpers.random_density(2**n_v, rng)
+    theta = rng.normal(scale=0.5, size=len(terms))
+    threaded = BlockHiddenEngine(terms, n_h, workers=2).evaluate(theta, rho)
+    serial = BlockHiddenEngine(terms, n_h, workers=1).evaluate(theta, rho)
+    assert abs(threaded.cross_entropy - serial.cross_entropy) < 1e-13  # other chunk sums
+    assert np.abs(threaded.gradient - serial.gradient).max() < 1e-13
+    # Source: the general engine on the full register (256 x 256).
+    dense = DenseHiddenEngine(terms, n_h).evaluate(theta, rho)
+    assert abs(threaded.cross_entropy - dense.cross_entropy) < 1e-10
+    assert np.abs(threaded.gradient - dense.gradient).max() < 1e-10
+
+
+def test_stacked_exp_divided_differences_match_the_expm1_form():
+    rng = np.random.default_rng(5)
+    wide = np.sort(rng.normal(scale=4.0, size=40))[::-1]
+    close = np.sort(np.concatenate([rng.normal(scale=0.01, size=20), [0.3, 0.3, 0.3 + 1e-12,
+                                                                         0.3 + 2e-3]]))
+    for spectrum in (wide, close, close[::-1] - 30.0):
+        x = spectrum[None, :]
+        got = stacked_exp_divided_differences(x, np.exp(x))[0]
+        # Source: frechet.exp_divided_differences (the expm1 form, checked against
+        # scipy.linalg.expm_frechet and the Taylor series above).
+        ref = exp_divided_differences(spectrum)
+        assert np.abs(got / ref - 1).max() < 1e-12
+
+
+def test_stacked_hamiltonians_match_dense_hamiltonians():
+    terms = TermSet(["XY", "YI", "ZZ", "IZ", "XX", "YZ"])
+    coef = np.random.default_rng(8).normal(size=(len(terms), 3))
+    stack = stacked_hamiltonians(coef, terms)
+    for i in range(3):
+        # Source: paulis.dense_hamiltonian (checked against PennyLane matrices in test_paulis).
+        assert np.abs(stack[i] - dense_hamiltonian(coef[:, i], terms)).max() < 1e-14
+    real = TermSet(["XI", "ZZ", "IX"])
+    assert stacked_hamiltonians(np.ones((3, 2)), real).dtype == float
 
 
 def test_no_hidden_qubits_adjoint_is_rho_and_gradient_is_visible(helpers):

@@ -4,6 +4,7 @@ Run from the repository root (not collected by pytest: the name does not match `
 
     python tests/benchmarks/bench_hidden.py
     python tests/benchmarks/bench_hidden.py --threads 1 --workers 1,2
+    python tests/benchmarks/bench_hidden.py --threads 1 --workers 1,2 --cases commuting
 
 Fixed, seeded instances (``hidden_terms``); data = a random full-rank density matrix on the
 visible wires; coefficients ~ N(0, 0.3^2).
@@ -24,11 +25,15 @@ Cases (one JSON object per line at the end, after the table):
   ``--workers`` value. Reference: one real symmetric eigh of the full register (fastest driver)
   when 2^(n_v+n_h) <= ``--max-eigh-dim``; beyond that it is extrapolated from the largest
   measured size by the cubic cost law (``reference_extrapolated`` true): a 2^16 eigh needs
-  34 GB and is not run. Target at n_h = 8: seconds < 1.
+  34 GB and is not run. Target at n_h = 8: seconds < 1. ``details`` add the floor of the
+  method: ``block_eigh_seconds`` (CPU time of the 2^n_h block eigendecompositions alone, one
+  call, same run) and ``eigh_share`` (that over the evaluation's CPU time).
 
 JSON keys: ``case``, ``n_visible``, ``n_hidden``, ``dim`` (full register 2^(n_v+n_h)),
 ``n_terms``, ``engine``, ``workers`` (block threads, null for dense), ``seconds`` (best of
-``--repeats`` runs of one loss + gradient), ``reference`` (text), ``reference_seconds``,
+``--repeats`` runs of one loss + gradient), ``cpu_seconds`` (CPU time of all threads in
+that run: what the work costs whatever else loads the machine), ``reference`` (text),
+``reference_seconds``,
 ``reference_extrapolated`` (bool), ``ratio`` (``seconds / reference_seconds``), ``target``
 (text or null), ``meets_target`` (bool or null), ``load`` (1-minute load average when the
 case finished), ``details`` (eigh driver times; for ``finite_difference`` the largest
@@ -56,6 +61,7 @@ from thermoseed.pretrain import (  # noqa: E402
     DenseHiddenEngine,
     hidden_terms,
 )
+from thermoseed.pretrain.hidden_engines import stacked_hamiltonians  # noqa: E402
 
 SEED = 20240612
 DRIVERS = ("numpy", "evd", "evr")
@@ -63,12 +69,18 @@ DRIVERS = ("numpy", "evd", "evr")
 
 def best_time(fn, repeats: int) -> float:
     """Fastest of ``repeats`` wall-clock runs (the run least disturbed by other load)."""
-    times = []
+    return timed(fn, repeats)[0]
+
+
+def timed(fn, repeats: int) -> tuple[float, float]:
+    """``(wall, cpu)`` seconds of the fastest of ``repeats`` runs; cpu = process time of
+    every thread during that run."""
+    best = (float("inf"), float("inf"))
     for _ in range(repeats):
-        t0 = time.perf_counter()
+        c0, t0 = time.process_time(), time.perf_counter()
         fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
+        best = min(best, (time.perf_counter() - t0, time.process_time() - c0))
+    return best
 
 
 def eigh_floor(dim: int, complex_: bool, repeats: int) -> dict[str, float]:
@@ -108,9 +120,10 @@ def commuting_instance(n_v: int, n_h: int):
 
 
 def row(case, n_v, n_h, terms, engine, workers, seconds, reference, ref_seconds,
-        extrapolated, target, meets, details):
+        extrapolated, target, meets, details, cpu_seconds=None):
     return {"case": case, "n_visible": n_v, "n_hidden": n_h, "dim": 2 ** (n_v + n_h),
             "n_terms": len(terms), "engine": engine, "workers": workers, "seconds": seconds,
+            "cpu_seconds": cpu_seconds,
             "reference": reference, "reference_seconds": ref_seconds,
             "reference_extrapolated": extrapolated,
             "ratio": None if ref_seconds is None else seconds / ref_seconds,
@@ -122,11 +135,12 @@ def run_general(n_v, n_h, repeats):
     terms, rho, theta = general_instance(n_v, n_h)
     engine = DenseHiddenEngine(terms, n_h)
     engine.evaluate(theta, rho)  # warm-up: sign tables
-    seconds = best_time(lambda: engine.evaluate(theta, rho), repeats)
+    seconds, cpu = timed(lambda: engine.evaluate(theta, rho), repeats)
     drivers = eigh_floor(2 ** (n_v + n_h), True, repeats)
     floor = min(drivers.values())
     r = row("general", n_v, n_h, terms, "dense", None, seconds, "full-register eigh (complex)",
-            floor, False, "ratio <= 6", bool(seconds <= 6 * floor), {"driver_seconds": drivers})
+            floor, False, "ratio <= 6", bool(seconds <= 6 * floor), {"driver_seconds": drivers},
+            cpu)
     return r, (engine, theta, rho)
 
 
@@ -155,7 +169,10 @@ def run_commuting(n_v, n_h, workers, repeats, floors):
     terms, rho, theta = commuting_instance(n_v, n_h)
     engine = BlockHiddenEngine(terms, n_h, workers=workers)
     engine.evaluate(theta, rho)  # warm-up
-    seconds = best_time(lambda: engine.evaluate(theta, rho), repeats)
+    seconds, cpu = timed(lambda: engine.evaluate(theta, rho), repeats)
+    coef, _ = engine.block_coefficients(theta)
+    blocks = stacked_hamiltonians(coef, engine.structure.visible)
+    block_eigh = timed(lambda: np.linalg.eigh(blocks), repeats)[1]
     dim = 2 ** (n_v + n_h)
     if dim in floors:
         floor, extrapolated, drivers = min(floors[dim].values()), False, floors[dim]
@@ -167,12 +184,13 @@ def run_commuting(n_v, n_h, workers, repeats, floors):
     meets = bool(seconds < 1) if n_h == 8 else None
     return row("commuting", n_v, n_h, terms, "block", workers, seconds,
                "full-register eigh (real)", floor, extrapolated, target, meets,
-               {"driver_seconds": drivers})
+               {"driver_seconds": drivers, "block_eigh_seconds": block_eigh,
+                "eigh_share": block_eigh / cpu}, cpu)
 
 
 def print_table(rows):
     print(f"{'case':<18}{'n_v':>4}{'n_h':>4}{'dim':>7}{'terms':>6}{'wk':>4}{'seconds':>10}"
-          f"{'ref s':>11}{'ratio':>10}{'load':>6}  target / note")
+          f"{'cpu s':>8}{'ref s':>11}{'ratio':>10}{'load':>6}  target / note")
     for r in rows:
         ref = "" if r["reference_seconds"] is None else f"{r['reference_seconds']:.4g}"
         ref += "*" if r["reference_extrapolated"] else ""
@@ -183,9 +201,13 @@ def print_table(rows):
         if r["case"] == "finite_difference":
             note += (f"  slow-down vs adjoint; {r['details']['loss_evaluations']} losses, "
                      f"|dgrad| {r['details']['grad_max_abs_diff_vs_adjoint']:.1e}")
+        if "eigh_share" in r["details"]:
+            note += (f"  block eighs {r['details']['block_eigh_seconds']:.3g} cpu s = "
+                     f"{r['details']['eigh_share']:.0%}")
         workers = "" if r["workers"] is None else str(r["workers"])
+        cpu = "" if r["cpu_seconds"] is None else f"{r['cpu_seconds']:.4g}"
         print(f"{r['case']:<18}{r['n_visible']:>4}{r['n_hidden']:>4}{r['dim']:>7}"
-              f"{r['n_terms']:>6}{workers:>4}{r['seconds']:>10.4g}{ref:>11}{ratio:>10}"
+              f"{r['n_terms']:>6}{workers:>4}{r['seconds']:>10.4g}{cpu:>8}{ref:>11}{ratio:>10}"
               f"{r['load']:>6.2f}  {note}")
     print("(* extrapolated eigh time: cubic law from the largest measured size)")
 
@@ -196,6 +218,8 @@ def main(argv=None) -> int:
     parser.add_argument("--workers", default="1,2", help="block-engine thread counts")
     parser.add_argument("--max-eigh-dim", type=int, default=4096,
                         help="largest full-register eigh actually timed")
+    parser.add_argument("--cases", default="general,commuting",
+                        help="which cases to run (comma-separated: general, commuting)")
     parser.add_argument("--threads", type=int, default=None,
                         help="BLAS threads (sets OPENBLAS/OMP/MKL_NUM_THREADS before import)")
     args = parser.parse_args(argv)
@@ -204,8 +228,11 @@ def main(argv=None) -> int:
     print(f"# cores: {os.cpu_count()}, OPENBLAS_NUM_THREADS="
           f"{os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}, numpy {np.__version__}, "
           f"scipy {scipy.__version__}, load average {os.getloadavg()[0]:.2f}", flush=True)
+    cases = set(args.cases.split(","))
+    if not cases <= {"general", "commuting"}:
+        parser.error(f"--cases takes general and/or commuting, got {args.cases!r}")
     rows = []
-    for n_v, n_h in ((4, 4), (5, 5)):
+    for n_v, n_h in ((4, 4), (5, 5)) if "general" in cases else ():
         r, setup = run_general(n_v, n_h, args.repeats)
         rows.append(r)
         print(f"# general {n_v}+{n_h}: {r['seconds']:.4g}s, eigh {r['reference_seconds']:.4g}s",
@@ -213,6 +240,8 @@ def main(argv=None) -> int:
         if n_v + n_h == 8:
             rows.append(run_finite_difference(n_v, n_h, r, setup))
             print(f"# finite differences {n_v}+{n_h}: {rows[-1]['seconds']:.4g}s", flush=True)
+    if "commuting" not in cases:
+        return report(rows)
     floors = {}
     for n in (12, 16):
         if 2**n <= args.max_eigh_dim:
@@ -224,6 +253,10 @@ def main(argv=None) -> int:
         for w in workers:
             rows.append(run_commuting(8, n_h, w, args.repeats, floors))
             print(f"# commuting 8+{n_h} workers {w}: {rows[-1]['seconds']:.4g}s", flush=True)
+    return report(rows)
+
+
+def report(rows) -> int:
     print(f"# load average at the end: {os.getloadavg()[0]:.2f} (other processes share the "
           "cores; timings are best-of-repeats)")
     print()
