@@ -222,7 +222,11 @@ def classification_findings(recipe: Recipe, run: dict, records: list) -> str:
     if probes:
         lines += ["Gradient variance decay (slope of log2 mean variance per added qubit, "
                   "95% bootstrap interval):", ""]
-        fits = decay_rates(probes, statistic="mean_var", seed=recipe.seed)
+        unestimated: dict = {}
+        fits = decay_rates(probes, statistic="mean_var", seed=recipe.seed,
+                           unestimated=unestimated)
+        lines += [f"- {_style(key.strategy)[0]}, {key.cost} cost: no decay rate ({reason})."
+                  for key, reason in sorted(unestimated.items())]
         for key, fit in sorted(fits.items()):
             trend = "decays" if fit.high < 0 else "grows" if fit.low > 0 else "shows no clear trend"
             verdict = f"the variance {trend}"

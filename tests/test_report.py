@@ -42,3 +42,16 @@ def test_report_renders_with_readable_pngs(tmp_path):
 def test_report_needs_records(tmp_path):
     with pytest.raises(ThermoseedError, match="neither"):
         write_report([], tmp_path)
+
+
+def test_two_seeds_per_size_give_a_report_that_says_why_there_is_no_rate(tmp_path):
+    """Two seeds are a valid sweep, but a bootstrap of two seeds repeats one seed half the
+    time (zero variance): the report says so per group instead of failing."""
+    jobs = make_grid([2, 3], ["uniform"], range(2), costs=("local",), depths=[1])
+    out = run_sweep(jobs, tmp_path / "sweep.jsonl", workers=1, progress=False)
+    text = write_report(out.records, tmp_path / "report", n_boot=200).read_text()
+    assert "No decay rate for local cost, uniform on [0, 2pi) (2 seeds per size)" in text
+    assert "probe more seeds" in text
+    # no decay table and no decay plot, the per-size table stays
+    assert rendered_structure(text)["tables"] == 1
+    assert not (tmp_path / "report" / "decay.png").exists()

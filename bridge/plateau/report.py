@@ -237,7 +237,9 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
     sub = "###" if preamble else "##"  # sections sit one level below the report's title
     parts += circuit_lines(records)
     if probes:
-        by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed)
+        unestimated: dict = {}
+        by_stat = {s: decay_rates(probes, statistic=s, n_boot=n_boot, seed=seed,
+                                  unestimated=unestimated)
                    for s in ("mean_var", "max_var")}
         groups = group_probes(probes)
         seeds = {k: min(len(v) for v in by_n.values()) for k, by_n in groups.items()}
@@ -250,7 +252,12 @@ def write_report(records: Sequence[dict], folder, *, title: str = "Plateau compa
         if by_stat["mean_var"]:
             plot_decay(by_stat["mean_var"], folder / "decay.png")
             parts += ["![log2 gradient variance against qubit count](decay.png)", ""]
-        parts += [decay_table(by_stat, seeds), "", "Per size:", "", stats_table(groups), ""]
+        if any(by_stat.values()):
+            parts += [decay_table(by_stat, seeds), ""]
+        parts += [f"No decay rate for {key.cost} cost, {_style(key.strategy)[0]} "
+                  f"({seeds.get(key)} seeds per size): {reason}." for key, reason in
+                  sorted(unestimated.items())]
+        parts += ["", "Per size:", "", stats_table(groups), ""]
     if curves:
         groups = defaultdict(list)
         for c in curves:

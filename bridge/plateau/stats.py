@@ -126,9 +126,12 @@ def fit_decay(grads_by_n: Mapping[int, np.ndarray], *, statistic: str = "mean_va
     ns = np.array(sorted(grads_by_n), dtype=float)
     mats = [np.asarray(grads_by_n[int(n)], dtype=float) for n in ns]
     for n, g in zip(ns, mats, strict=True):
-        if g.ndim != 2 or g.shape[0] < 2:
-            raise ThermoseedError(f"n = {int(n)}: need an (R >= 2, K) gradient matrix, "
+        if g.ndim != 2:
+            raise ThermoseedError(f"n = {int(n)}: need an (R, K) gradient matrix, "
                                   f"got shape {g.shape}")
+        if g.shape[0] < 2:
+            raise TooFewSeedsError(f"n = {int(n)} has {g.shape[0]} seed; a variance needs "
+                                   "at least 2 (probe more seeds)")
     point = np.log2([_statistic(g, statistic) for g in mats])
     rng = np.random.default_rng(seed)
     boot = np.empty((int(n_boot), len(ns)))
@@ -144,13 +147,17 @@ def fit_decay(grads_by_n: Mapping[int, np.ndarray], *, statistic: str = "mean_va
     slope = float(_slopes(ns, point[None, :])[0])
     intercept = float(point.mean() - slope * ns.mean())
     if slopes.size < 0.9 * int(n_boot):
-        raise ThermoseedError(
+        raise TooFewSeedsError(
             f"only {slopes.size} of {n_boot} bootstrap resamples have a non-zero {statistic} "
             "at every n; probe more seeds"
         )
     low, high = np.quantile(slopes, [(1 - level) / 2, (1 + level) / 2])
     return DecayFit(statistic, tuple(int(n) for n in ns), tuple(float(v) for v in point),
                     slope, intercept, float(low), float(high), float(level), slopes)
+
+
+class TooFewSeedsError(ThermoseedError):
+    """The bootstrap cannot estimate a decay rate from this few seeds per size."""
 
 
 class GroupKey(NamedTuple):
@@ -174,15 +181,22 @@ def group_probes(results: Iterable[ProbeResult]) -> dict[GroupKey, dict[int, lis
 
 
 def decay_rates(results: Iterable[ProbeResult], *, statistic: str = "mean_var",
-                n_boot: int = 1000, level: float = 0.95, seed: int = 0
-                ) -> dict[GroupKey, DecayFit]:
-    """``fit_decay`` for every group with at least two qubit counts."""
+                n_boot: int = 1000, level: float = 0.95, seed: int = 0,
+                unestimated: dict | None = None) -> dict[GroupKey, DecayFit]:
+    """``fit_decay`` for every group with at least two qubit counts. A group with too few
+    seeds for the bootstrap raises ``TooFewSeedsError``, or, when ``unestimated`` is a
+    dict, is left out and its reason stored there under its key."""
     fits = {}
     for key, by_n in sorted(group_probes(results).items()):
         if len(by_n) >= 2:
             mats = {n: gradient_matrix(rs) for n, rs in by_n.items()}
-            fits[key] = fit_decay(mats, statistic=statistic, n_boot=n_boot, level=level,
-                                  seed=seed)
+            try:
+                fits[key] = fit_decay(mats, statistic=statistic, n_boot=n_boot, level=level,
+                                      seed=seed)
+            except TooFewSeedsError as err:
+                if unestimated is None:
+                    raise
+                unestimated[key] = str(err)
     return fits
 
 
