@@ -39,7 +39,6 @@ from typing import NamedTuple
 import autograd
 import autograd.numpy as anp
 import numpy as np
-import scipy.optimize
 from tqdm.auto import tqdm
 
 from thermoseed.bridge.ansatz import Ansatz, apply_ansatz
@@ -52,6 +51,7 @@ from thermoseed.pretrain.measurements import (
     prior_vector,
     success_probability,
 )
+from thermoseed.pretrain.optim import minimize
 
 #: Eigen-directions of a state (or of Gamma) with |weight| at or below this are dropped: the
 #: objective moves by at most d times this.
@@ -245,14 +245,14 @@ def _starts(ansatz: Ansatz, init, small_angle, restarts: int, seed: int, init_sc
 
 
 def _iteration_callback(history: list, bar, bound: float, target: float):
-    """scipy callback: record the success, advance the bar, stop once ``target`` is met."""
+    """``minimize`` callback: record the success, advance the bar, stop once ``target`` is
+    met."""
 
-    def callback(intermediate_result):
-        history.append(-float(intermediate_result.fun))
+    def callback(step, x, loss, grad) -> bool:
+        history.append(-float(loss))
         bar.update(1)
         bar.set_postfix(success=f"{history[-1]:.6f}", bound=f"{bound:.6f}", refresh=False)
-        if history[-1] >= target:
-            raise StopIteration
+        return history[-1] >= target
 
     return callback
 
@@ -314,13 +314,11 @@ def readout_compile(
               disable=not progress, leave=False) as bar:
         for x0 in starts:
             history: list[float] = []
-            res = scipy.optimize.minimize(
-                fun, x0.ravel(), jac=True, method="L-BFGS-B",
-                callback=_iteration_callback(history, bar, bound, target),
-                options={"maxiter": max_iter, "gtol": tol, "ftol": 1e-15, "maxcor": 20})
+            res = minimize(fun, x0.ravel(), tol=tol, max_iter=max_iter, warn=False,
+                           callback=_iteration_callback(history, bar, bound, target))
             bar.update(max_iter - len(history))
-            value, grad = fun(res.x)
-            run = (-value, res.x, history, float(np.abs(grad).max()))
+            _, grad = fun(res.x)
+            run = (-res.loss, res.x, history, float(np.abs(grad).max()))
             if best is None or run[0] > best[0]:
                 best = run
             if best[0] >= target:
