@@ -39,7 +39,9 @@ def _fmt_reach(value, target: float) -> str:
 #: pre-training (our own bar: a tenth of the weight lost).
 MIN_COMPILE_FIDELITY = 0.9
 #: Starts built from the pre-training chain (judged only when the chain held its thresholds).
-PRETRAINED = ("pretrained", "pretrained_perturbed", "class_models")
+#: The class-model start is not among them: it fits its own models per class and compiles
+#: their decision rule (the exact rules' accuracies and bounds are reported beside it).
+PRETRAINED = ("pretrained", "pretrained_perturbed")
 
 
 def _number(value) -> float:
@@ -185,11 +187,9 @@ def _size_lines(n: int, summaries: dict, rules: dict | None, target: float,
             f"{_fmt_reach(s.steps_to_target, target)} ({s.reached}/{s.n_seeds} seeds); "
             f"{_tuning(s.start_accuracy, s.last_accuracy, s.best_accuracy, held_out)}.")
     mine = summaries.get("class_models")
-    if mine is not None and len(summaries) > 1 and not judged:
-        lines += ["", f"Class-model warm start at n = {n}: not compared with the other starts "
-                  "(the pre-training stages fell short, see Stage quality)."]
-    elif mine is not None and len(summaries) > 1:
-        others = {k: s.steps_to_target for k, s in summaries.items() if k != "class_models"}
+    if mine is not None and len(summaries) > 1:
+        others = {k: s.steps_to_target for k, s in summaries.items()
+                  if k != "class_models" and (judged or k not in PRETRAINED)}
         known = [v for v in others.values() if v is not None]
         if mine.steps_to_target is None:
             verdict = "did not reach the target in most seeds"

@@ -484,3 +484,23 @@ def test_readme_documents_own_data_circuit_and_plots():
     for needle in ("[data.files]", 'generator = "', "[circuit]", "--data 4=",
                    "--convergence-plot", "shots ="):
         assert needle in readme, needle
+
+
+def test_class_model_start_is_judged_on_its_own_chain_when_the_compile_fell_short():
+    """The class-model start fits its own per-class models; a failed unlabelled compile marks
+    only the starts built from it, and the class-model comparison leaves those out."""
+    from types import SimpleNamespace
+
+    from thermoseed.recipes.findings import _size_lines
+
+    def summary(start, steps):
+        return SimpleNamespace(start_accuracy=start, steps_to_target=steps, reached=2,
+                               n_seeds=2, last_accuracy=start, best_accuracy=start)
+
+    summaries = {"class_models": summary(1.0, 2), "pretrained": summary(1.0, 0),
+                 "uniform": summary(0.5, 6)}
+    text = "\n".join(_size_lines(3, summaries, None, 0.9, judged=False))
+    assert "- class-model warm start: held-out" in text
+    assert "pre-trained warm start (not assessed: stage quality)" in text
+    # compared with the uniform start only (the pre-trained one reached it at step 0)
+    assert "reached the target no later than any other start" in text
