@@ -9,7 +9,7 @@ the built-in recipes; ``config`` is the typed recipe (``recipe_values`` checks i
 
 Layer order, lowest first (a module imports only modules before it):
     scenarios -> recipe_values -> config -> sources -> plots -> neighbour -> findings ->
-    pipeline -> cli -> __main__
+    pipeline -> cli_values -> commands -> cli -> __main__
 """
 
 from thermoseed.pretrain.lazy import lazy_exports
