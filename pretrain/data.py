@@ -161,7 +161,8 @@ def check_density_matrix(rho, *, renormalize: bool = False, what: str = "density
     return a
 
 
-def _checked_states(states, weights, renormalize: bool) -> tuple[np.ndarray, np.ndarray, int]:
+def checked_states(states, weights=None, renormalize: bool = False
+                   ) -> tuple[np.ndarray, np.ndarray, int]:
     """Validated ``(states (B, 2^n), weights summing to 1, n)`` of a state-vector batch."""
     s = _finite(states, "state batch")
     if s.ndim == 1:
@@ -184,7 +185,7 @@ def _checked_states(states, weights, renormalize: bool) -> tuple[np.ndarray, np.
 
 def from_states(states, weights=None, *, labels=None, renormalize: bool = False) -> TrainingData:
     """Mixture of pure states: ``rho = sum_i w_i |psi_i><psi_i|``; ``states`` is (B, 2^n)."""
-    s, w, n = _checked_states(states, weights, renormalize)
+    s, w, n = checked_states(states, weights, renormalize)
     check_dense_memory(n, 1, "the dense density matrix", LARGE_DATA_HINT)
     rho = (s.T * w) @ s.conj()
     return TrainingData(rho, n, s.shape[0], w, _check_labels(labels, s.shape[0]), s)
@@ -219,7 +220,7 @@ def summarize_states(states, terms: TermSet, weights=None, *, renormalize: bool 
     The moments are ``Tr(rho P) = sum_b rho[b, b^x] i^{|x&z|} (-1)^{|z&b|}`` (the x-mask
     gather of ``pauli_traces``) with ``rho[b, b^x] = sum_i w_i psi_i[b] psi_i[b^x]^*``.
     """
-    s, w, n = _checked_states(states, weights, renormalize)
+    s, w, n = checked_states(states, weights, renormalize)
     check_qubits(n, terms)
     idx = np.arange(terms.dim)
     moments = np.zeros(len(terms))

@@ -1,5 +1,8 @@
 """Labelled classifier data: states with integer labels, split into training and held-out.
 
+``StateBatch`` (``as_state_batch``) is a validated batch of states, vectors or density
+matrices, with its per-state moments and its mixture; ``check_labels`` the labels' check.
+
 ``LabelledData`` is the one container for labelled states in thermoseed (sweeps, probes,
 recipes, the command line); ``stratified_split`` the one train / held-out split. The states
 are checked like the fit's data: finite, (B, 2^n) unit vectors or (B, 2^n, 2^n) density
@@ -15,9 +18,18 @@ from typing import NamedTuple
 import numpy as np
 
 from .checks import real_number, seed_value
-from .data import check_density_matrix
+from .data import (
+    TrainingData,
+    check_density_matrix,
+    check_qubits,
+    checked_states,
+    from_density_matrices,
+    from_states,
+    square_array_kind,
+)
 from .errors import ThermoseedError
 from .files import RECORD_HEADER, load_npz, read_record, write_record
+from .paulis import TermSet, expectations
 
 #: Largest deviation of a state vector's norm from one that is accepted as round-off.
 NORM_ATOL = 1e-8
@@ -169,3 +181,81 @@ def load_labelled(path, *, test_fraction: float = 0.25, seed: int = 0) -> Labell
                             arrays["test_labels"]).check()
     return split_labelled(arrays[key], arrays["labels"], test_fraction=test_fraction,
                           seed=seed)
+
+
+# ---------------------------------------------------------------- state batches
+
+
+class StateBatch(NamedTuple):
+    """Validated states: ``kind`` "states" ((B, d) unit vectors) or "density" ((B, d, d))."""
+
+    kind: str
+    data: np.ndarray
+    n_qubits: int
+
+    @property
+    def count(self) -> int:
+        return int(self.data.shape[0])
+
+    def subset(self, index) -> StateBatch:
+        return StateBatch(self.kind, self.data[index], self.n_qubits)
+
+
+def as_state_batch(states, *, renormalize: bool = False) -> StateBatch:
+    """Validate (B, 2^n) state vectors or (B, 2^n, 2^n) density matrices (data.py checks)."""
+    arr = np.asarray(states)
+    if arr.ndim in (2, 3) and arr.shape[0] == 0:
+        raise ThermoseedError("the state batch is empty; pass at least one state")
+    if arr.ndim in (1, 2):
+        try:
+            vectors, _, n = checked_states(arr, renormalize=renormalize)
+        except ThermoseedError as err:
+            if square_array_kind(arr) == "density":  # a lone density matrix, read as vectors
+                raise ThermoseedError(f"{err}; a (d, d) array is read as d state vectors: pass "
+                                      "one density matrix as rho[None]") from err
+            raise
+        return StateBatch("states", vectors, n)
+    if arr.ndim == 3:
+        checked = np.stack([check_density_matrix(m, renormalize=renormalize,
+                                                 what=f"density matrix {i}")
+                            for i, m in enumerate(arr)])
+        return StateBatch("density", checked, int(round(np.log2(arr.shape[1]))))
+    raise ThermoseedError(f"states must be (B, 2^n) state vectors or (B, 2^n, 2^n) density "
+                          f"matrices, got shape {arr.shape}")
+
+
+def batch_moments(batch: StateBatch, terms: TermSet) -> np.ndarray:
+    """(B, K) moments ``m_ij = Tr(rho_i P_j)`` (``<psi_i|P_j|psi_i>`` for vectors)."""
+    check_qubits(batch.n_qubits, terms)
+    if batch.kind == "states":
+        return np.array([expectations(np.outer(v, v.conj()), terms) for v in batch.data])
+    return np.array([expectations(r, terms) for r in batch.data])
+
+
+def batch_mixture(batch: StateBatch) -> TrainingData:
+    """The equal-weight mixture ``(1/B) sum_i rho_i`` of a batch."""
+    build = from_states if batch.kind == "states" else from_density_matrices
+    return build(batch.data)
+
+
+def check_labels(labels, count: int, *, every_class: bool = True) -> tuple[np.ndarray, int]:
+    """Integer labels ``0..C-1``, one per state; ``every_class``: all C >= 2 classes present."""
+    lab = np.asarray(labels)
+    if lab.ndim != 1 or lab.shape[0] != count:
+        raise ThermoseedError(f"got {count} states but labels of shape {lab.shape}; pass one "
+                              "integer label per state")
+    if lab.dtype == bool or not np.issubdtype(lab.dtype, np.integer):
+        raise ThermoseedError(f"labels must be integers 0..C-1, got dtype {lab.dtype}; convert "
+                              "them, e.g. np.unique(labels, return_inverse=True)[1]")
+    if lab.min() < 0:
+        raise ThermoseedError(f"label {int(lab.min())} is negative; number the classes 0..C-1")
+    n_classes = int(lab.max()) + 1
+    if every_class:
+        missing = sorted(set(range(n_classes)) - set(lab.tolist()))
+        if missing:
+            raise ThermoseedError(f"labels run 0..{n_classes - 1} but classes {missing[:5]} have "
+                                  "no states; renumber the classes 0..C-1 with each present")
+        if n_classes < 2:
+            raise ThermoseedError("every label is 0 (one class only); a classifier needs "
+                                  "states of at least two classes")
+    return lab.astype(np.int64), n_classes

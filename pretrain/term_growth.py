@@ -30,10 +30,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from .checks import integer_in, real_number
-from .classifier import GibbsClassifier, as_state_batch, batch_moments, check_labels
+from .classifier import GibbsClassifier
 from .data import check_qubits
 from .errors import ThermoseedError
-from .labelled import stratified_split
+from .labelled import as_state_batch, batch_moments, check_labels, stratified_split
 from .paulis import TermSet, graph_edges, parity_labels
 
 #: Default cap on the number of candidate strings.
