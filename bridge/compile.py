@@ -21,6 +21,7 @@ from typing import NamedTuple
 import autograd
 import autograd.numpy as anp
 import numpy as np
+import scipy.sparse
 from autograd.extend import defvjp, primitive
 from tqdm.auto import tqdm
 
@@ -173,9 +174,37 @@ def _entropy_vjp(ans, m):
 defvjp(_entropy_of_factor, _entropy_vjp)
 
 
+#: A Hamiltonian with at most this fraction of nonzero entries is applied as a sparse matrix
+#: (a Pauli-string H has at most (number of distinct x-masks) nonzeros per row).
+SPARSE_FILL = 0.1
+
+
+def _operator(h: np.ndarray):
+    """``h`` as CSR when it is sparse enough (one O(d^2) scan), else as it is."""
+    if np.count_nonzero(h) <= SPARSE_FILL * h.size:
+        return scipy.sparse.csr_matrix(h)
+    return h
+
+
+def _applied(h, rows: np.ndarray) -> np.ndarray:
+    """Rows ``H c_i`` for rows ``c_i`` (dense or sparse Hermitian ``h``)."""
+    return np.asarray(h @ rows.T).T
+
+
+@primitive
 def _energies(rows, h):
-    """``E_i = <c_i|H|c_i>`` for rows ``c_i`` (autograd-friendly)."""
-    return anp.real(anp.sum(anp.conj(rows) * anp.dot(rows, h.T), axis=1))
+    """``E_i = <c_i|H|c_i>`` for rows ``c_i``; autograd primitive (dense or sparse ``h``)."""
+    return np.real(np.sum(np.conj(rows) * _applied(h, rows), axis=1))
+
+
+def _energies_vjp(ans, rows, h):
+    # dE_i = 2 Re(<dc_i|H|c_i>); autograd's gradient for real f of complex c is 2 df/dc,
+    # and df/dc_i = conj(H c_i) for Hermitian H.
+    applied = _applied(h, rows)
+    return lambda g: 2.0 * g[:, None] * np.conj(applied)
+
+
+defvjp(_energies, _energies_vjp)
 
 
 def _visible(model):
@@ -280,6 +309,7 @@ def compile_latent(
     n = _check_model(model, ansatz, ansatz.n_wires)
     data_rho = _data_rho(data, n)
     h = np.asarray(model.hamiltonian())
+    h_op = _operator(h)
     gibbs = model.evaluate(want_state=True)  # the one eigendecomposition of H
     energies, log_z = np.asarray(gibbs.energies), gibbs.log_z
 
@@ -304,7 +334,7 @@ def compile_latent(
 
         def objective(x):
             rows = ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), lat.basis)
-            return neg_entropy + anp.dot(q, _energies(rows, h)) + log_z
+            return neg_entropy + anp.dot(q, _energies(rows, h_op)) + log_z
 
         extra, floor = 0, max(0.0, -float(np.log(lat.captured)))
     else:
@@ -312,7 +342,7 @@ def compile_latent(
         def objective(x):
             rows = ansatz_columns(ansatz, anp.reshape(x[:npar], ansatz.shape))
             qx, ent = bernoulli_product(x[npar:], n)
-            return -ent + anp.dot(qx, _energies(rows, h)) + log_z
+            return -ent + anp.dot(qx, _energies(rows, h_op)) + log_z
 
         extra, floor = n, 0.0
 
@@ -348,14 +378,15 @@ def compile_purified(
         )
     data_rho = _data_rho(data, n)
     h = np.asarray(model.hamiltonian())
+    h_op = _operator(h)
     gibbs = model.evaluate(want_state=True)  # the one eigendecomposition of H
     log_z = gibbs.log_z
     dv = 2**n
 
     def objective(x):
         psi = ansatz_columns(ansatz, anp.reshape(x, ansatz.shape), [0])[0]
-        m = anp.reshape(psi, (dv, -1))
-        energy = anp.real(anp.sum(anp.conj(m) * anp.dot(h, m)))
+        m = anp.reshape(psi, (dv, -1))  # Tr(m^dag H m): the energies of m's columns
+        energy = anp.sum(_energies(anp.transpose(m), h_op))
         return -_entropy_of_factor(m) + energy + log_z
 
     best = _optimise(objective,

@@ -9,6 +9,7 @@ import autograd.numpy as anp
 import numpy as np
 import pennylane as qml
 import pytest
+from numerics import central_differences
 
 from thermoseed.bridge.ansatz import make_ansatz
 from thermoseed.bridge.gate_sweep import (
@@ -30,15 +31,6 @@ def _objective(apply, weights):
     return lambda params, block: anp.real(anp.sum(weights * apply(params, block)))
 
 
-def _central_difference(f, x, eps=1e-6):
-    grad = np.zeros_like(x)
-    for i in range(x.size):
-        step = np.zeros_like(x)
-        step.flat[i] = eps
-        grad.flat[i] = (f(x + step) - f(x - step)) / (2 * eps)
-    return grad
-
-
 @pytest.mark.parametrize("name", sorted(TEMPLATES))
 @pytest.mark.parametrize("n", [2, 3])
 def test_template_gradient_matches_finite_differences(name, n):
@@ -54,12 +46,12 @@ def test_template_gradient_matches_finite_differences(name, n):
     assert np.allclose(template.apply(params, n, block), u @ block, atol=1e-12)
     # parameter gradient against central finite differences
     grad = autograd.grad(f, 0)(params, block)
-    reference = _central_difference(lambda p: float(f(p, block)), params)
+    reference = central_differences(lambda p: float(f(p, block)), params)
     assert np.allclose(grad, reference, atol=1e-7)
     # the block's cotangent: df/dRe(b) - i df/dIm(b) (autograd's convention for complex input)
     grad_block = autograd.grad(f, 1)(params, block)
-    re = _central_difference(lambda r: float(f(params, r + 1j * block.imag)), block.real.copy())
-    im = _central_difference(lambda i: float(f(params, block.real + 1j * i)), block.imag.copy())
+    re = central_differences(lambda r: float(f(params, r + 1j * block.imag)), block.real.copy())
+    im = central_differences(lambda i: float(f(params, block.real + 1j * i)), block.imag.copy())
     assert np.allclose(grad_block, re - 1j * im, atol=1e-7)
 
 
@@ -82,7 +74,7 @@ def test_controlled_rotation_either_wire_order(control, target):
     weights = _random_block(rng, 2**n, 2)
     f = _objective(lambda p, b: apply_gates(p, b, gates), weights)
     grad = autograd.grad(f, 0)(np.array([angle]), block)
-    reference = _central_difference(lambda p: float(f(p, block)), np.array([angle]))
+    reference = central_differences(lambda p: float(f(p, block)), np.array([angle]))
     assert np.allclose(grad, reference, atol=1e-7)
 
 
