@@ -171,7 +171,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--strategies", type=names,
                    default=["uniform", "small_angle", "identity_blocks"],
                    help="uniform, small_angle, identity_blocks, pretrained, "
-                        "pretrained_perturbed (default: the first three)")
+                        "pretrained_perturbed, class_models (default: the first three)")
     p.add_argument("--costs", type=names, default=["local", "global"],
                    help="local, global, classifier (default local,global)")
     p.add_argument("--seeds", type=int_at_least(2), default=20,
