@@ -85,53 +85,33 @@ def rotation_chain(axes: str, angles: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return prefix[-1], derivs
 
 
-def _wire_view(block: np.ndarray, gate: WireGate) -> np.ndarray:
-    """A (a, 2, b) view of the rows the gate acts on (the control-1 half when controlled)."""
-    d, k = block.shape
-    if gate.control is None:
-        return block.reshape(2**gate.wire, 2, -1)
-    c, t = gate.control, gate.wire
-    half = block.reshape(2**c, 2, -1)[:, 1, :]
-    if t > c:
-        return half.reshape(2**c * 2 ** (t - c - 1), 2, -1)
-    # target before control: wires 0..t-1, t, t+1..c-1, [c fixed to 1], c+1..
-    return half.reshape(2**t, 2, -1)
+def _position(gate: WireGate) -> int:
+    """The target's position among the wires that index the rows the gate acts on (all
+    wires, or all but the control)."""
+    return gate.wire - int(gate.control is not None and gate.wire > gate.control)
+
+
+def _control_rows(block: np.ndarray, control: int) -> np.ndarray:
+    """The rows where wire ``control`` is 1, as a (2^control, rest) view."""
+    return block.reshape(2**control, 2, -1)[:, 1, :]
 
 
 def _act(block: np.ndarray, gate: WireGate, matrix: np.ndarray) -> np.ndarray:
     """``matrix`` on the gate's wire (control-1 rows only when controlled); a new array."""
-    out = block.copy()
     if gate.control is None:
-        view = out.reshape(2**gate.wire, 2, -1)
-        view[...] = np.matmul(matrix, view)
-        return out
-    if gate.wire < gate.control:
-        # the control-1 half is not a contiguous reshape of the target axis: use an index
-        n = int(np.log2(block.shape[0]))
-        rows = np.arange(block.shape[0])
-        on = (rows >> (n - 1 - gate.control)) & 1 == 1
-        sub = out[on]
-        view = sub.reshape(2**gate.wire, 2, -1)
-        out[on] = np.matmul(matrix, view).reshape(sub.shape)
-        return out
-    halves = out.reshape(2**gate.control, 2, -1)
-    on = halves[:, 1, :]
-    view = on.reshape(2**gate.control * 2 ** (gate.wire - gate.control - 1), 2, -1)
-    halves[:, 1, :] = np.matmul(matrix, view).reshape(on.shape)
+        return np.matmul(matrix, block.reshape(2**gate.wire, 2, -1)).reshape(block.shape)
+    out = block.copy()
+    part = _control_rows(out, gate.control)
+    part[...] = np.matmul(matrix, part.reshape(2 ** _position(gate), 2, -1)).reshape(part.shape)
     return out
 
 
 def _correlation(lam: np.ndarray, state: np.ndarray, gate: WireGate) -> np.ndarray:
     """``C_ab = sum_ij Lambda_{i a j} B_{i b j}`` over the rows the gate acts on."""
-    if gate.control is not None and gate.wire < gate.control:
-        n = int(np.log2(lam.shape[0]))
-        rows = np.arange(lam.shape[0])
-        on = (rows >> (n - 1 - gate.control)) & 1 == 1
-        lam, state = lam[on], state[on]
-        lv, sv = lam.reshape(2**gate.wire, 2, -1), state.reshape(2**gate.wire, 2, -1)
-    else:
-        lv, sv = _wire_view(lam, gate), _wire_view(state, gate)
-    return np.einsum("iaj,ibj->ab", lv, sv)
+    if gate.control is not None:
+        lam, state = _control_rows(lam, gate.control), _control_rows(state, gate.control)
+    pos = _position(gate)
+    return np.einsum("iaj,ibj->ab", lam.reshape(2**pos, 2, -1), state.reshape(2**pos, 2, -1))
 
 
 def forward(gates: Sequence, block: np.ndarray) -> np.ndarray:
