@@ -48,18 +48,6 @@ class XXZThermalData(ScenarioRecord):
     density: np.ndarray
 
 
-    def arrays(self) -> dict[str, np.ndarray]:
-        """The ``.npz`` payload: ``density``, ``labels`` and the per-sample parameters."""
-        return {
-            "density": self.density,
-            "labels": self.labels,
-            "deltas": self.deltas,
-            "betas": self.betas,
-            "coupling": np.asarray(self.coupling, dtype=float),
-        }
-
-
-
 def _check_coupling(coupling: float) -> float:
     j = real_number(coupling, "coupling J")
     if j <= 0:

@@ -56,19 +56,6 @@ class ProbeDriftData(ScenarioRecord):
     density: np.ndarray
 
 
-    def arrays(self) -> dict[str, np.ndarray]:
-        """The ``.npz`` payload: ``density``, ``labels`` and the per-sample parameters."""
-        return {
-            "density": self.density,
-            "labels": self.labels,
-            "phases": self.phases,
-            "dephasing": self.dephasing,
-            "depolarising": self.depolarising,
-            "tolerance": np.asarray(self.tolerance, dtype=float),
-        }
-
-
-
 # ---------------------------------------------------------------- checks
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import fields
 from pathlib import Path
 
 import numpy as np
@@ -17,8 +18,11 @@ class ScenarioRecord:
     def __len__(self) -> int:
         return len(self.labels)
 
-    def arrays(self) -> dict[str, np.ndarray]:  # pragma: no cover - defined by each record
-        raise NotImplementedError
+    def arrays(self) -> dict[str, np.ndarray]:
+        """The ``.npz`` payload: every field but ``n_qubits`` (``density``, ``labels`` and
+        the per-sample parameters), scalars as 0-d arrays."""
+        return {f.name: np.asarray(getattr(self, f.name)) for f in fields(self)
+                if f.name != "n_qubits"}
 
     def save_npz(self, path) -> Path:
         """Write the schema of ``pretrain.data`` atomically; returns the path."""
