@@ -139,21 +139,38 @@ def backward(gates: Sequence, out: np.ndarray, cotangent: np.ndarray, n_params: 
     return grad, lam
 
 
+#: The last gate list built, ``(build, params bytes, gates)``: the forward pass and its
+#: vector-Jacobian product see the same ``build`` and parameters, so the list is built once
+#: (the entry is replaced whole, so a caller only ever gets the list of its own key).
+_LAST_BUILT: list = [(None, b"", [])]
+
+
+def _gates(build, params) -> list:
+    """``build(params)``, reusing the list the forward pass just built."""
+    x = np.asarray(params, float)
+    key = x.tobytes()
+    last_build, last_key, gates = _LAST_BUILT[0]
+    if last_build is not build or last_key != key:
+        gates = build(x)
+        _LAST_BUILT[0] = (build, key, gates)
+    return gates
+
+
 @primitive
 def apply_gates(params, block, build) -> np.ndarray:
     """``U(params) @ block`` with ``build(params) -> gate list`` (autograd primitive)."""
-    return forward(build(np.asarray(params, float)), block)
+    return forward(_gates(build, params), block)
 
 
 def _vjp_params(out, params, block, build):
-    gates = build(np.asarray(params, float))
+    gates = _gates(build, params)
     shape = np.shape(params)
     size = int(np.prod(shape))
     return lambda g: backward(gates, out, g, size)[0].reshape(shape)
 
 
 def _vjp_block(out, params, block, build):
-    gates = build(np.asarray(params, float))
+    gates = _gates(build, params)
     size = int(np.prod(np.shape(params)))
     return lambda g: backward(gates, out, g, size)[1]
 
