@@ -8,6 +8,16 @@ basis states ``latent_order`` gives: wire 0 varies fastest); its floor is
 ``-log(captured weight)``. ``latent="product"``: q a product of Bernoulli(p_k) with trainable
 logits (the variational-quantum-thermalizer form).
 
+Eigenvector start (spectrum latent, default): each restart first fits the latent columns to
+sigma's eigenvectors, minimising the weighted infidelity
+    ``sum_i q_i (1 - |<v_i|U|x_i>|^2)``,
+then minimises S from there. Both objectives are zero-loss exactly at U|x_i> = v_i (up to
+phases), but S weighs an excited component v_j by its energy gap, ``S ~ sum_j (E_j - E_i)
+|<v_j|U|x_i>|^2`` near the optimum, so its valley is as ill-conditioned as the spectrum is wide
+(Hessian eigenvalues spanning 1e-4 to 7e2 on the benchmark's n = 8 chain), while the
+infidelity weighs every excited direction alike. The eigenvectors come from the one
+eigendecomposition the compile already does.
+
 Purified form: a circuit W on visible + ancilla wires from |0...0>, objective
 ``S(Tr_anc W|0><0|W^dag || sigma) = -S(rho_v) + Tr(rho_v H) + log Z``.
 """
@@ -43,12 +53,12 @@ from thermoseed.pretrain.linalg import (
 from thermoseed.pretrain.optim import minimize
 
 FORMS = ("latent", "purified")
-#: Width of the first restart's uniform starting angles ``[0, SMALL_START)``, near the
-#: template's all-zero point (the others start on ``[0, init_scale)``). Measured on a
-#: low-temperature transverse-field Ising model (n = 8, 'strong' template, 16 layers, 300
-#: L-BFGS iterations): S = 0.55 from [0, 0.1) against 1.57 from [0, 2 pi), where gradients
-#: are exponentially small (barren plateau); a small n = 3, k = 2 case does better from
-#: [0, 2 pi), hence one start of each kind.
+#: Width of the uniform starting angles ``[0, SMALL_START)`` of the first ``small_starts``
+#: restarts, near the template's all-zero point (the others start on ``[0, init_scale)``).
+#: Measured on a low-temperature transverse-field Ising model (n = 8, 'strong' template, 16
+#: layers, 300 L-BFGS iterations): S = 0.55 from [0, 0.1) against 1.57 from [0, 2 pi), where
+#: gradients are exponentially small (barren plateau); a small n = 3, k = 2 case does better
+#: from [0, 2 pi), hence by default one small start and the rest wide.
 SMALL_START = 0.1
 
 
@@ -224,41 +234,67 @@ def _check_model(model, ansatz: Ansatz, n_wires: int):
 
 
 def _restart_inits(ansatz: Ansatz, extra: int, restarts: int, seed: int, init_scale: float,
-                   small_start: bool = False):
-    """Seeded starts: uniform on ``[0, init_scale)``, the first on ``[0, SMALL_START)``
-    when ``small_start``; ``extra`` trailing zeros (latent logits)."""
+                   small_starts: int = 0):
+    """Seeded starts: the first ``small_starts`` uniform on ``[0, SMALL_START)``, the others
+    on ``[0, init_scale)``; ``extra`` trailing zeros (latent logits)."""
     if restarts < 1:
         raise ThermoseedError(f"restarts must be >= 1, got {restarts}")
     for i, child in enumerate(np.random.SeedSequence(seed).spawn(restarts)):
         rng = np.random.default_rng(child)
-        scale = SMALL_START if small_start and i == 0 else init_scale
+        scale = SMALL_START if i < small_starts else init_scale
         yield np.concatenate([rng.uniform(0, scale, ansatz.n_params), np.zeros(extra)])
 
 
-def _optimise(objective, inits, *, max_iter, tol, progress, desc):
+def _loss_and_grad(objective):
     value_and_grad = autograd.value_and_grad(objective)
 
     def loss_and_grad(x):
         value, grad = value_and_grad(x)
         return float(value), np.asarray(grad, dtype=float)
 
+    return loss_and_grad
+
+
+def _eigenvector_infidelity(ansatz: Ansatz, lat: Latent, vectors: np.ndarray):
+    """``x -> sum_i q_i (1 - |<v_i|U(x)|x_i>|^2)`` for latent slots i and eigenvectors v_i."""
+    conj_targets = np.conj(vectors.T)  # row i: conj(v_i)
+
+    def infidelity(x):
+        rows = ansatz_columns(ansatz, anp.reshape(x[:ansatz.n_params], ansatz.shape), lat.basis)
+        overlaps = anp.sum(rows * conj_targets, axis=1)
+        return anp.dot(lat.probs, 1.0 - anp.abs(overlaps) ** 2)
+
+    return infidelity
+
+
+def _optimise(objective, inits, *, max_iter, tol, progress, desc, first_stage=None):
+    """Best of L-BFGS runs (up to ``max_iter`` iterations each) from ``inits``. With
+    ``first_stage`` (an objective with the same minimiser) every start first minimises that,
+    and only the best of those goes on to minimise ``objective``."""
     starts = list(inits)
-    best = None
-    with tqdm(total=len(starts) * max_iter, desc=desc, disable=not progress,
-              leave=False) as bar:
+    runs = len(starts) + (first_stage is not None)
+    with tqdm(total=runs * max_iter, desc=desc, disable=not progress, leave=False) as bar:
 
         def tick(step, x, loss, grad):
             bar.update(1)
             bar.set_postfix(objective=f"{loss:.4g}", refresh=False)
 
-        for x0 in starts:
-            with warnings.catch_warnings():
-                # one restart that stops short is normal; the best one is judged below
-                warnings.simplefilter("ignore", ConvergenceWarning)
-                result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter, callback=tick)
-            bar.update(max_iter - result.n_iter)  # an early stop skips the rest of its share
-            if best is None or result.loss < best.loss:
-                best = result
+        def best_run(loss_and_grad, x0s):
+            best = None
+            for x0 in x0s:
+                with warnings.catch_warnings():
+                    # one restart that stops short is normal; the best one is judged below
+                    warnings.simplefilter("ignore", ConvergenceWarning)
+                    result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter,
+                                      callback=tick)
+                bar.update(max_iter - result.n_iter)  # an early stop skips its share's rest
+                if best is None or result.loss < best.loss:
+                    best = result
+            return best
+
+        if first_stage is not None:
+            starts = [best_run(_loss_and_grad(first_stage), starts).x]
+        best = best_run(_loss_and_grad(objective), starts)
     if not best.converged:
         warnings.warn(
             f"the compile's best of {len(starts)} restart(s) stopped after {best.n_iter} "
@@ -289,8 +325,8 @@ def _report(compiled: np.ndarray, objective: float, floor: float, converged: boo
 def compile_latent(
     model, ansatz: Ansatz, *, latent: str = "spectrum", k: int | None = None,
     weight: float = 0.999, restarts: int = 3, seed: int = 0, max_iter: int = 300,
-    tol: float = 1e-6, init_scale: float = 2 * np.pi, small_start: bool = True, data=None,
-    progress: bool = False, class_data=None, readout: int = 0,
+    tol: float = 1e-6, init_scale: float = 2 * np.pi, small_starts: int = 1, data=None,
+    progress: bool = False, class_data=None, readout: int = 0, eigenvector_start: bool = True,
 ) -> CompileResult:
     """Latent-form compile of a fitted model into ``ansatz`` (see module docstring); a
     hidden-qubit model compiles as its visible reduced state.
@@ -300,8 +336,11 @@ def compile_latent(
     eigenvector is then placed on a basis state whose ``readout`` bit is the class that holds
     more (class-balanced) weight on it, so a classifier reading that wire starts on the
     labels' side instead of an arbitrary one (``labelled_order``).
-    Restarts start from uniform parameters on ``[0, init_scale)``, the first one on
-    ``[0, SMALL_START)`` near the template's zero point when ``small_start``; the best is kept.
+    Restarts start from uniform parameters on ``[0, init_scale)``, the first ``small_starts``
+    of them on ``[0, SMALL_START)`` near the template's zero point; the best is kept.
+    ``eigenvector_start`` (spectrum latent): every restart first fits the latent columns to
+    sigma's eigenvectors (up to ``max_iter`` iterations, see module docstring); the best fit
+    then minimises S (up to ``max_iter`` more), and ``history`` is that stage's.
     """
     if latent not in LATENT_KINDS:
         raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
@@ -314,7 +353,7 @@ def compile_latent(
     energies, log_z = np.asarray(gibbs.energies), gibbs.log_z
 
     npar = ansatz.n_params
-    classes = None
+    classes, first_stage = None, None
     if class_data is not None:
         if latent != "spectrum":
             raise ThermoseedError("class_data places the spectrum latent; use latent='spectrum'")
@@ -337,6 +376,9 @@ def compile_latent(
             return neg_entropy + anp.dot(q, _energies(rows, h_op)) + log_z
 
         extra, floor = 0, max(0.0, -float(np.log(lat.captured)))
+        if eigenvector_start:
+            slots = np.argsort(energies, kind="stable")[:len(q)]  # most probable first
+            first_stage = _eigenvector_infidelity(ansatz, lat, gibbs.vectors[:, slots])
     else:
 
         def objective(x):
@@ -347,8 +389,9 @@ def compile_latent(
         extra, floor = n, 0.0
 
     best = _optimise(objective,
-                     _restart_inits(ansatz, extra, restarts, seed, init_scale, small_start),
-                     max_iter=max_iter, tol=tol, progress=progress, desc="compile")
+                     _restart_inits(ansatz, extra, restarts, seed, init_scale, small_starts),
+                     max_iter=max_iter, tol=tol, progress=progress, desc="compile",
+                     first_stage=first_stage)
     params = best.x[:npar].reshape(ansatz.shape)
     if latent == "product":
         qx, _ = bernoulli_product(best.x[npar:], n)
@@ -363,11 +406,11 @@ def compile_latent(
 def compile_purified(
     model, ansatz: Ansatz, *, n_visible: int | None = None, restarts: int = 3, seed: int = 0,
     max_iter: int = 300, tol: float = 1e-6, init_scale: float = 2 * np.pi,
-    small_start: bool = True, data=None, progress: bool = False,
+    small_starts: int = 1, data=None, progress: bool = False,
 ) -> CompileResult:
     """Purified-form compile: ``ansatz`` acts on visible wires 0..n-1 plus ancillas n..;
     minimises ``S(rho_v || sigma)`` of the visible reduced state of ``W|0...0>``. Restarts
-    start as in ``compile_latent`` (the first near zero when ``small_start``)."""
+    start as in ``compile_latent`` (the first ``small_starts`` near zero)."""
     model = _visible(model)
     n = model.terms_.n_qubits if n_visible is None else int(n_visible)
     _check_model(model, ansatz, n)
@@ -390,7 +433,7 @@ def compile_purified(
         return -_entropy_of_factor(m) + energy + log_z
 
     best = _optimise(objective,
-                     _restart_inits(ansatz, 0, restarts, seed, init_scale, small_start),
+                     _restart_inits(ansatz, 0, restarts, seed, init_scale, small_starts),
                      max_iter=max_iter, tol=tol, progress=progress, desc="compile")
     params = best.x.reshape(ansatz.shape)
     report = _report(compiled_state("purified", ansatz, params, None, n), best.loss, 0.0,

@@ -21,13 +21,18 @@ from numerics import central_differences
 
 from thermoseed.bridge.ansatz import ansatz_columns, make_ansatz, user_ansatz
 from thermoseed.bridge.compile import (
+    SMALL_START,
+    _eigenvector_infidelity,
     _energies,
     _entropy_of_factor,
     _operator,
+    _restart_inits,
     compile_latent,
     compile_purified,
 )
 from thermoseed.bridge.compile_record import load_compile, save_compile
+from thermoseed.bridge.latent import spectrum_latent
+from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.pretrain import VisibleGibbsModel, graph_terms
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.models import save_model
@@ -591,3 +596,38 @@ def test_pauli_hamiltonians_past_a_few_qubits_are_applied_sparse():
     assert scipy.sparse.issparse(op) and op.nnz == 16 * 256
     assert not scipy.sparse.issparse(_operator(np.ones((4, 4))))
 
+
+
+def test_eigenvector_infidelity_value_and_gradient(model2):
+    """First stage sum_i q_i (1 - |<v_i|U|x_i>|^2): value against qml.matrix of the template
+    (PennyLane) and scipy.linalg.eigh eigenvectors, gradient against central differences."""
+    ansatz = make_ansatz("strong", 2, 2)
+    lat = spectrum_latent(np.asarray(model2.evaluate().energies), k=2)
+    _, vectors = scipy.linalg.eigh(model2.hamiltonian())  # ascending: most probable first
+    infidelity = _eigenvector_infidelity(ansatz, lat, vectors[:, :2])
+    x = np.random.default_rng(5).uniform(0, 2 * np.pi, ansatz.n_params)
+    u = qml.matrix(lambda p: TEMPLATES["strong"].qfunc(p, [0, 1]), wire_order=[0, 1])(
+        x.reshape(ansatz.shape))
+    overlaps = np.abs(np.einsum("ai,ai->i", vectors[:, :2].conj(), u[:, lat.basis])) ** 2
+    assert infidelity(x) == pytest.approx(float(lat.probs @ (1 - overlaps)), abs=1e-12)
+    assert np.allclose(autograd.grad(infidelity)(x), central_differences(infidelity, x),
+                       atol=1e-6)
+
+
+def test_eigenvector_start_reaches_the_same_optimum_and_records_the_s_stage():
+    """With and without the first stage the n = 3 cold model reaches the target; the
+    history is that of S (its last entry is the reported objective)."""
+    model = _cold_model_n3()
+    ansatz = make_ansatz("strong", 3, 4)
+    with_stage = compile_latent(model, ansatz, restarts=2, seed=0, max_iter=400)
+    without = compile_latent(model, ansatz, restarts=2, seed=0, max_iter=400,
+                             eigenvector_start=False)
+    for result in (with_stage, without):
+        assert result.report.objective - result.report.floor < TARGET_RELATIVE_ENTROPY
+    assert with_stage.history[-1] == pytest.approx(with_stage.report.objective, abs=1e-12)
+
+
+def test_small_starts_sets_how_many_restarts_start_near_zero():
+    ansatz = make_ansatz("strong", 2, 1)
+    inits = list(_restart_inits(ansatz, 0, 3, seed=0, init_scale=2 * np.pi, small_starts=2))
+    assert [float(np.max(x)) < SMALL_START for x in inits] == [True, True, False]
