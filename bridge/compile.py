@@ -267,34 +267,45 @@ def _eigenvector_infidelity(ansatz: Ansatz, lat: Latent, vectors: np.ndarray):
     return infidelity
 
 
-def _optimise(objective, inits, *, max_iter, tol, progress, desc, first_stage=None):
+def _optimise(objective, inits, *, max_iter, tol, progress, desc, first_stage=None,
+              screen_iter=None):
     """Best of L-BFGS runs (up to ``max_iter`` iterations each) from ``inits``. With
-    ``first_stage`` (an objective with the same minimiser) every start first minimises that,
-    and only the best of those goes on to minimise ``objective``."""
+    ``first_stage`` (an objective with the same minimiser) every start first minimises that
+    for ``screen_iter`` iterations (default ``max_iter``), the best goes on with it up to
+    ``max_iter`` in all, and then minimises ``objective`` from there."""
     starts = list(inits)
-    runs = len(starts) + (first_stage is not None)
-    with tqdm(total=runs * max_iter, desc=desc, disable=not progress, leave=False) as bar:
+    screen = max_iter if screen_iter is None else min(int(screen_iter), max_iter)
+    total = len(starts) * max_iter if first_stage is None else \
+        len(starts) * screen + (max_iter - screen) + max_iter
+    with tqdm(total=total, desc=desc, disable=not progress, leave=False) as bar:
 
         def tick(step, x, loss, grad):
             bar.update(1)
             bar.set_postfix(objective=f"{loss:.4g}", refresh=False)
 
-        def best_run(loss_and_grad, x0s):
+        def best_run(loss_and_grad, x0s, iters):
             best = None
             for x0 in x0s:
                 with warnings.catch_warnings():
                     # one restart that stops short is normal; the best one is judged below
                     warnings.simplefilter("ignore", ConvergenceWarning)
-                    result = minimize(loss_and_grad, x0, tol=tol, max_iter=max_iter,
+                    result = minimize(loss_and_grad, x0, tol=tol, max_iter=iters,
                                       callback=tick)
-                bar.update(max_iter - result.n_iter)  # an early stop skips its share's rest
+                bar.update(iters - result.n_iter)  # an early stop skips its share's rest
                 if best is None or result.loss < best.loss:
                     best = result
             return best
 
         if first_stage is not None:
-            starts = [best_run(_loss_and_grad(first_stage), starts).x]
-        best = best_run(_loss_and_grad(objective), starts)
+            fit = _loss_and_grad(first_stage)
+            best = best_run(fit, starts, screen)
+            rest = max_iter - screen
+            if rest and not best.converged:
+                best = best_run(fit, [best.x], rest)
+            else:
+                bar.update(rest)
+            starts = [best.x]
+        best = best_run(_loss_and_grad(objective), starts, max_iter)
     if not best.converged:
         warnings.warn(
             f"the compile's best of {len(starts)} restart(s) stopped after {best.n_iter} "
@@ -327,6 +338,7 @@ def compile_latent(
     weight: float = 0.999, restarts: int = 3, seed: int = 0, max_iter: int = 300,
     tol: float = 1e-6, init_scale: float = 2 * np.pi, small_starts: int = 1, data=None,
     progress: bool = False, class_data=None, readout: int = 0, eigenvector_start: bool = True,
+    screen_iter: int | None = None,
 ) -> CompileResult:
     """Latent-form compile of a fitted model into ``ansatz`` (see module docstring); a
     hidden-qubit model compiles as its visible reduced state.
@@ -339,11 +351,16 @@ def compile_latent(
     Restarts start from uniform parameters on ``[0, init_scale)``, the first ``small_starts``
     of them on ``[0, SMALL_START)`` near the template's zero point; the best is kept.
     ``eigenvector_start`` (spectrum latent): every restart first fits the latent columns to
-    sigma's eigenvectors (up to ``max_iter`` iterations, see module docstring); the best fit
-    then minimises S (up to ``max_iter`` more), and ``history`` is that stage's.
+    sigma's eigenvectors for ``screen_iter`` iterations (default ``max_iter``; see module
+    docstring), the best fit goes on up to ``max_iter`` in all and then minimises S (up to
+    ``max_iter`` more); ``history`` is that last stage's. A short ``screen_iter`` with many
+    restarts spends the budget on the start that fits best early.
     """
     if latent not in LATENT_KINDS:
         raise ThermoseedError(f"latent must be one of {LATENT_KINDS}, got {latent!r}")
+    if screen_iter is not None and int(screen_iter) < 1:
+        raise ThermoseedError(f"screen_iter must be >= 1 (or None for max_iter), got "
+                              f"{screen_iter}")
     model = _visible(model)
     n = _check_model(model, ansatz, ansatz.n_wires)
     data_rho = _data_rho(data, n)
@@ -391,7 +408,7 @@ def compile_latent(
     best = _optimise(objective,
                      _restart_inits(ansatz, extra, restarts, seed, init_scale, small_starts),
                      max_iter=max_iter, tol=tol, progress=progress, desc="compile",
-                     first_stage=first_stage)
+                     first_stage=first_stage, screen_iter=screen_iter)
     params = best.x[:npar].reshape(ansatz.shape)
     if latent == "product":
         qx, _ = bernoulli_product(best.x[npar:], n)

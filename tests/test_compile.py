@@ -36,6 +36,7 @@ from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.pretrain import VisibleGibbsModel, graph_terms
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.pretrain.models import save_model
+from thermoseed.pretrain.optim import minimize
 
 #: Issue 3 acceptance levels for an expressive enough ansatz.
 TARGET_RELATIVE_ENTROPY = 1e-4
@@ -631,3 +632,26 @@ def test_small_starts_sets_how_many_restarts_start_near_zero():
     ansatz = make_ansatz("strong", 2, 1)
     inits = list(_restart_inits(ansatz, 0, 3, seed=0, init_scale=2 * np.pi, small_starts=2))
     assert [float(np.max(x)) < SMALL_START for x in inits] == [True, True, False]
+
+
+def test_screening_continues_the_best_first_stage_fit(monkeypatch):
+    """restarts=3, screen_iter=4, max_iter=10: three 4-iteration eigenvector fits, the one
+    with the lowest infidelity goes on for 6 more, then one S run of up to 10 from there."""
+    import thermoseed.bridge.compile as compile_module
+
+    calls = []
+
+    def spy(loss_and_grad, x0, **kwargs):
+        result = minimize(loss_and_grad, x0, **kwargs)
+        calls.append((np.array(x0), kwargs["max_iter"], result))
+        return result
+
+    monkeypatch.setattr(compile_module, "minimize", spy)
+    compile_latent(_cold_model_n3(), make_ansatz("strong", 3, 2), restarts=3, seed=0,
+                   max_iter=10, screen_iter=4)
+    assert [c[1] for c in calls] == [4, 4, 4, 6, 10]
+    best = min(calls[:3], key=lambda c: c[2].loss)[2]
+    assert np.array_equal(calls[3][0], best.x)
+    assert np.array_equal(calls[4][0], calls[3][2].x)
+    with pytest.raises(ThermoseedError, match="screen_iter"):
+        compile_latent(_cold_model_n3(), make_ansatz("strong", 3, 2), screen_iter=0)
