@@ -137,8 +137,15 @@ def build_parser() -> argparse.ArgumentParser:
                    help="spectral weight the latent states must hold (default 0.999)")
     p.add_argument("--restarts", type=positive_int, default=3,
                    help="seeded random starts, best kept (default 3)")
+    p.add_argument("--small-starts", type=nonneg_int, default=1,
+                   help="how many of the starts begin at small angles near the circuit's "
+                        "zero point; the others are uniform on [0, 2 pi) (default 1)")
     p.add_argument("--max-iter", type=positive_int, default=300,
-                   help="L-BFGS iterations per start (default 300)")
+                   help="L-BFGS iterations per start and stage (default 300)")
+    p.add_argument("--screen-iter", type=positive_int,
+                   help="spectrum latent: eigenvector-fit iterations every start gets before "
+                        "the best one goes on (default: --max-iter); e.g. --restarts 6 "
+                        "--small-starts 6 --screen-iter 300 --max-iter 3000 for 8 qubits")
     p.add_argument("--seed", type=nonneg_int, default=0, help="seed of the starts")
     p.add_argument("--data", help="training data, for the report")
     p.add_argument("--convergence-plot", metavar="PNG",

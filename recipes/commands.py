@@ -112,6 +112,7 @@ def compile_command(args) -> int:
     data = load_training_data(args.data).rho if args.data else None
     result = compile_latent(model, make_ansatz(args.ansatz, n, layers), latent=args.latent,
                             k=args.k, weight=args.weight, restarts=args.restarts,
+                            small_starts=args.small_starts, screen_iter=args.screen_iter,
                             seed=args.seed, max_iter=args.max_iter, data=data,
                             progress=not args.quiet)
     path = save_compile(result, args.out)

@@ -13,6 +13,10 @@ import numpy as np
 import pytest
 from markdown_check import rendered_structure
 
+from thermoseed.bridge.ansatz import make_ansatz
+from thermoseed.bridge.compile import compile_latent
+from thermoseed.bridge.compile_record import load_compile
+from thermoseed.pretrain import load_model
 from thermoseed.pretrain.errors import ThermoseedError
 from thermoseed.recipes.cli import main
 from thermoseed.recipes.config import load_recipe, validate_recipe
@@ -143,6 +147,19 @@ def test_fit_compile_warm_start_inspect_commands(tmp_path, capsys):
                  "--max-iter", "30", "--out", str(tmp_path / "c.npz"), "--quiet"]) == 0
     comp = json.loads(capsys.readouterr().out)
     assert 0 <= comp["model_fidelity"] <= 1
+    # the screening options reach compile_latent: the same run through the Python API
+    assert main(["compile", str(tmp_path / "m.npz"), "--layers", "2", "--restarts", "2",
+                 "--small-starts", "2", "--screen-iter", "5", "--max-iter", "30",
+                 "--out", str(tmp_path / "s.npz"), "--quiet"]) == 0
+    capsys.readouterr()
+    screened = load_compile(tmp_path / "s.npz").params
+    model = load_model(tmp_path / "m.npz")
+    direct = compile_latent(model, make_ansatz("strong", 2, 2), restarts=2, small_starts=2,
+                            screen_iter=5, max_iter=30).params
+    unscreened = compile_latent(model, make_ansatz("strong", 2, 2), restarts=2,
+                                max_iter=30).params
+    assert np.array_equal(screened, direct)
+    assert not np.allclose(unscreened, direct)  # the options change the run
     assert main(["warm-start", str(tmp_path / "c.npz"), "--head", "soft",
                  "--out", str(tmp_path / "p.npz"), "--quiet"]) == 0
     assert json.loads(capsys.readouterr().out)["shape"] == [2 * 2 * 3 + 1 * 2 * 3]
