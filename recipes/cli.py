@@ -144,8 +144,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="L-BFGS iterations per start and stage (default 300)")
     p.add_argument("--screen-iter", type=positive_int,
                    help="spectrum latent: eigenvector-fit iterations every start gets before "
-                        "the best one goes on (default: --max-iter); e.g. --restarts 6 "
-                        "--small-starts 6 --screen-iter 300 --max-iter 3000 for 8 qubits")
+                        "the best one goes on (default: --max-iter); e.g. --restarts 8 "
+                        "--small-starts 8 --screen-iter 300 --max-iter 3000 for 8 qubits")
     p.add_argument("--seed", type=nonneg_int, default=0, help="seed of the starts")
     p.add_argument("--data", help="training data, for the report")
     p.add_argument("--convergence-plot", metavar="PNG",

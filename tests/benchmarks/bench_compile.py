@@ -104,8 +104,8 @@ MAX_ITER = 1000
 TEMPLATE_NAMES = ("strong", "soft")
 TARGET_N, TARGET_SECONDS, TARGET_RELATIVE_ENTROPY = 8, 60.0, 1e-2
 #: ``--budget-seeds``: compile_latent settings sized to the 60 s budget at n = 8
-#: (6 x 300 + 2700 eigenvector-fit iterations + 3000 S iterations at ~6 ms each).
-BUDGET = {"restarts": 6, "small_starts": 6, "screen_iter": 300, "max_iter": 3000}
+#: (8 x 300 + 2700 eigenvector-fit iterations + 3000 S iterations at ~6 ms each).
+BUDGET = {"restarts": 8, "small_starts": 8, "screen_iter": 300, "max_iter": 3000}
 
 
 def _target_model(n: int):
