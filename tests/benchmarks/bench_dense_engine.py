@@ -38,13 +38,13 @@ baseline's loss and gradient with thermoseed's for baselines).
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 import time
 import warnings
 from functools import reduce
 
+from bench_report import print_report  # noqa: E402 - stdlib only
 from blas_threads import preset_threads  # noqa: E402 - stdlib only, before numpy
 
 if __name__ == "__main__":
@@ -292,14 +292,7 @@ def main(argv=None) -> int:
                 rows.append(run_baseline(
                     name, 8, lambda t, r, mm=matmul: baseline_b_factory(t, r, matmul=mm),
                     ours[8], None if matmul else 10, args.repeats))
-    print(f"# load average at the end: {os.getloadavg()[0]:.2f} (other processes share the "
-          "cores; timings are best-of-repeats)")
-    print()
-    print_table(rows)
-    print()
-    for r in rows:
-        print(json.dumps(r, sort_keys=True))
-    return 0
+    return print_report(rows, print_table)
 
 
 if __name__ == "__main__":

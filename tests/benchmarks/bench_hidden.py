@@ -43,11 +43,11 @@ difference between the finite-difference and adjoint gradients).
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 import time
 
+from bench_report import print_report  # noqa: E402 - stdlib only
 from blas_threads import preset_threads  # noqa: E402 - stdlib only, before numpy
 
 if __name__ == "__main__":
@@ -241,7 +241,7 @@ def main(argv=None) -> int:
             rows.append(run_finite_difference(n_v, n_h, r, setup))
             print(f"# finite differences {n_v}+{n_h}: {rows[-1]['seconds']:.4g}s", flush=True)
     if "commuting" not in cases:
-        return report(rows)
+        return print_report(rows, print_table)
     floors = {}
     for n in (12, 16):
         if 2**n <= args.max_eigh_dim:
@@ -253,18 +253,7 @@ def main(argv=None) -> int:
         for w in workers:
             rows.append(run_commuting(8, n_h, w, args.repeats, floors))
             print(f"# commuting 8+{n_h} workers {w}: {rows[-1]['seconds']:.4g}s", flush=True)
-    return report(rows)
-
-
-def report(rows) -> int:
-    print(f"# load average at the end: {os.getloadavg()[0]:.2f} (other processes share the "
-          "cores; timings are best-of-repeats)")
-    print()
-    print_table(rows)
-    print()
-    for r in rows:
-        print(json.dumps(r, sort_keys=True))
-    return 0
+    return print_report(rows, print_table)
 
 
 if __name__ == "__main__":
