@@ -239,6 +239,8 @@ def _restart_inits(ansatz: Ansatz, extra: int, restarts: int, seed: int, init_sc
     on ``[0, init_scale)``; ``extra`` trailing zeros (latent logits)."""
     if restarts < 1:
         raise ThermoseedError(f"restarts must be >= 1, got {restarts}")
+    if small_starts < 0:
+        raise ThermoseedError(f"small_starts must be >= 0, got {small_starts}")
     for i, child in enumerate(np.random.SeedSequence(seed).spawn(restarts)):
         rng = np.random.default_rng(child)
         scale = SMALL_START if i < small_starts else init_scale
@@ -304,8 +306,8 @@ def _optimise(objective, inits, *, max_iter, tol, progress, desc, first_stage=No
                 best = best_run(fit, [best.x], rest)
             else:
                 bar.update(rest)
-            starts = [best.x]
-        best = best_run(_loss_and_grad(objective), starts, max_iter)
+        best = best_run(_loss_and_grad(objective),
+                        starts if first_stage is None else [best.x], max_iter)
     if not best.converged:
         warnings.warn(
             f"the compile's best of {len(starts)} restart(s) stopped after {best.n_iter} "

@@ -34,7 +34,7 @@ from thermoseed.bridge.compile_record import load_compile, save_compile
 from thermoseed.bridge.latent import spectrum_latent
 from thermoseed.bridge.templates import TEMPLATES
 from thermoseed.pretrain import VisibleGibbsModel, graph_terms
-from thermoseed.pretrain.errors import ThermoseedError
+from thermoseed.pretrain.errors import ConvergenceWarning, ThermoseedError
 from thermoseed.pretrain.models import save_model
 from thermoseed.pretrain.optim import minimize
 
@@ -632,6 +632,8 @@ def test_small_starts_sets_how_many_restarts_start_near_zero():
     ansatz = make_ansatz("strong", 2, 1)
     inits = list(_restart_inits(ansatz, 0, 3, seed=0, init_scale=2 * np.pi, small_starts=2))
     assert [float(np.max(x)) < SMALL_START for x in inits] == [True, True, False]
+    with pytest.raises(ThermoseedError, match="small_starts"):
+        next(_restart_inits(ansatz, 0, 3, seed=0, init_scale=1.0, small_starts=-1))
 
 
 def test_screening_continues_the_best_first_stage_fit(monkeypatch):
@@ -647,8 +649,9 @@ def test_screening_continues_the_best_first_stage_fit(monkeypatch):
         return result
 
     monkeypatch.setattr(compile_module, "minimize", spy)
-    compile_latent(_cold_model_n3(), make_ansatz("strong", 3, 2), restarts=3, seed=0,
-                   max_iter=10, screen_iter=4)
+    with pytest.warns(ConvergenceWarning, match="best of 3 restart"):
+        compile_latent(_cold_model_n3(), make_ansatz("strong", 3, 2), restarts=3, seed=0,
+                       max_iter=10, screen_iter=4)
     assert [c[1] for c in calls] == [4, 4, 4, 6, 10]
     best = min(calls[:3], key=lambda c: c[2].loss)[2]
     assert np.array_equal(calls[3][0], best.x)
