@@ -47,6 +47,18 @@ def free_fermion(n: int, coupling: float, field: float, beta: float) -> tuple[fl
             float(-np.sum(levels / 2 * np.tanh(beta * levels / 2))))
 
 
+def _fisher_by_differences(terms, coef, step: float = 1e-5) -> np.ndarray:
+    """F = Hessian of log Z = -d<P>/d theta, by central differences of the dense model's
+    moments, symmetrised."""
+    f = np.empty((len(terms), len(terms)))
+    for k in range(len(terms)):
+        e = np.zeros(len(terms))
+        e[k] = step
+        f[:, k] = -(VisibleGibbsModel.from_coefficients(terms, coef + e).moments()
+                    - VisibleGibbsModel.from_coefficients(terms, coef - e).moments()) / (2 * step)
+    return 0.5 * (f + f.T)
+
+
 # ---------------------------------------------------------------- against the dense engine
 
 
@@ -138,15 +150,7 @@ def test_full_fit_lands_near_the_dense_fit(helpers):
     # Tolerance from the engine's own error: theta moves by F^-1 (moment error), F the
     # Hessian of log Z (dense, by central differences of the dense moments).
     ev = typical.evaluate()
-    step = 1e-5
-    f = np.empty((len(terms), len(terms)))
-    for k in range(len(terms)):
-        e = np.zeros(len(terms))
-        e[k] = step
-        f[:, k] = -(VisibleGibbsModel.from_coefficients(terms, dense.coef_ + e).moments()
-                    - VisibleGibbsModel.from_coefficients(terms, dense.coef_ - e).moments()
-                    ) / (2 * step)
-    inv = np.linalg.inv(0.5 * (f + f.T))
+    inv = np.linalg.inv(_fisher_by_differences(terms, dense.coef_))
     engine_stderr = np.sqrt(np.diag(inv @ ev.moment_covariance @ inv))
     assert np.all(np.abs(typical.coef_ - dense.coef_) <= 4 * engine_stderr)
     assert np.abs(typical.coef_ - dense.coef_).max() < 0.1
@@ -217,15 +221,7 @@ def test_records_fit_with_typicality_reports_errors():
     # differences of its moments). Check against the same sum built from outside pieces:
     # the dense fit's errors (exact F, records only) and F^-1 Cov_engine F^-1 with F by
     # central differences of the dense moments.
-    step = 1e-5
-    f = np.empty((len(terms), len(terms)))
-    for k in range(len(terms)):
-        e = np.zeros(len(terms))
-        e[k] = step
-        f[:, k] = -(VisibleGibbsModel.from_coefficients(terms, typical.coef_ + e).moments()
-                    - VisibleGibbsModel.from_coefficients(terms, typical.coef_ - e).moments()
-                    ) / (2 * step)
-    inv = np.linalg.inv(0.5 * (f + f.T))
+    inv = np.linalg.inv(_fisher_by_differences(terms, typical.coef_))
     engine_var = np.diag(inv @ typical.evaluate().moment_covariance @ inv)
     combined = np.sqrt(dense.coef_stderr_**2 + engine_var)
     np.testing.assert_allclose(typical.coef_stderr_, combined, rtol=0.25)

@@ -108,14 +108,14 @@ TARGET_N, TARGET_SECONDS, TARGET_RELATIVE_ENTROPY = 8, 60.0, 1e-2
 BUDGET = {"restarts": 8, "small_starts": 8, "screen_iter": 300, "max_iter": 3000}
 
 
-def _target_model(n: int):
-    field, beta = INSTANCES[TARGET_INSTANCE]
+def _instance_model(instance: str, n: int):
+    field, beta = INSTANCES[instance]
     return VisibleGibbsModel.from_coefficients(tfim_terms(n), beta * tfim_coefficients(n, field))
 
 
 def run_budget(template: str, seeds: int) -> list[dict]:
     """The target case under BUDGET on seeds 0..seeds-1; one line per seed, then a summary."""
-    model = _target_model(TARGET_N)
+    model = _instance_model(TARGET_INSTANCE, TARGET_N)
     ansatz = make_ansatz(template, TARGET_N, 2 * TARGET_N)
     rows = []
     for seed in range(seeds):
@@ -168,7 +168,7 @@ def _objective(rows_of, model, latent):
 
 def run_case(instance: str, n: int, template: str) -> dict:
     field, beta = INSTANCES[instance]
-    model = VisibleGibbsModel.from_coefficients(tfim_terms(n), beta * tfim_coefficients(n, field))
+    model = _instance_model(instance, n)
     ansatz = make_ansatz(template, n, 2 * n)
     latent = spectrum_latent(model.spectrum())
 
